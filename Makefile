@@ -1,0 +1,34 @@
+# One command sets up and runs the demo; one sets up and runs the tests.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+
+.PHONY: setup demo test lint sample-reports bench clean
+
+$(STAMP): pyproject.toml requirements.lock
+	bash scripts/ensure_system_packages.sh
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -c requirements.lock -e ".[test]"
+	touch $(STAMP)
+
+setup: $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/reportgen demo --out demo_output
+
+test: $(STAMP)
+	$(BIN)/ruff check reportgen tests scripts benchmarks
+	$(BIN)/python -m pytest -q
+
+sample-reports: $(STAMP)
+	$(BIN)/python scripts/make_demo_data.py
+	$(BIN)/reportgen demo --out sample_reports || test $$? -eq 1
+	rm -rf sample_reports/draws
+
+bench: $(STAMP)
+	$(BIN)/python benchmarks/bench_fit.py
+
+clean:
+	rm -rf $(VENV) demo_output reportgen-demo .pytest_cache

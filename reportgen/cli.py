@@ -1,0 +1,199 @@
+"""Command line: ``reportgen init | check | run | demo``.
+
+Exit codes: 0 every pair passed its checks; 1 the report was written but at
+least one pair failed its convergence checks; 2 the spec, data or output
+folder was refused (one line on stderr says why); 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import sys
+import warnings
+from collections.abc import Callable
+from functools import wraps
+from pathlib import Path
+from typing import Any, TypeVar
+
+import click
+
+from reportgen import __version__
+from reportgen.errors import ReportgenError, SpecError
+
+F = TypeVar("F", bound=Callable[..., Any])
+DEMO_DIR = Path(__file__).resolve().parent / "demo"
+DEMO_SPEC = DEMO_DIR / "quillmere_spec.toml"
+
+
+def _quiet_libraries() -> None:
+    """Library chatter (refactor notices, BLAS probes) is not for report users."""
+    warnings.filterwarnings("ignore", category=FutureWarning, module="arviz")
+    warnings.filterwarnings("ignore", message=".*could not link to a BLAS.*")
+    warnings.filterwarnings("ignore", category=UserWarning, module="pytensor")
+    logging.getLogger("weasyprint").setLevel(logging.ERROR)
+    logging.getLogger("fontTools").setLevel(logging.ERROR)
+    os.environ.setdefault("PYTENSOR_FLAGS", "blas__ldflags=")
+
+
+def user_errors(func: F) -> F:
+    """Our errors become one line and exit 2; Ctrl-C becomes exit 130."""
+
+    @wraps(func)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        debug = click.get_current_context().find_root().params.get("debug", False)
+        try:
+            return func(*args, **kwargs)
+        except ReportgenError as exc:
+            if debug:
+                raise
+            click.echo(f"reportgen: error: {exc}", err=True)
+            sys.exit(exc.exit_code)
+        except KeyboardInterrupt:
+            click.echo("reportgen: interrupted; no output was changed", err=True)
+            sys.exit(130)
+
+    return wrapper  # type: ignore[return-value]
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="reportgen")
+@click.option("--debug", is_flag=True, help="Show full tracebacks for errors.")
+def main(debug: bool) -> None:
+    """Bayesian correlation reports (HTML and PDF) from a spec and a data table."""
+    _quiet_libraries()
+
+
+def _progress_printer() -> Callable[[str, int, int], None] | None:
+    if not sys.stderr.isatty():
+        return None
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+    bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                   TimeElapsedColumn(), transient=True)
+    task = bar.add_task("fitting", total=None)
+
+    def update(key: str, done: int, total: int) -> None:
+        if not bar.live.is_started:
+            bar.start()
+        if key == "done":
+            bar.update(task, completed=total, total=total)
+            bar.stop()
+            return
+        label = "compiling model, then fitting" if done == 0 else f"fitting {key}"
+        bar.update(task, completed=done, total=total, description=label[:60])
+
+    return update
+
+
+def _load(spec_path: Path, **overrides: int | None) -> Any:
+    from reportgen.spec import load_spec, with_sampler_overrides
+
+    return with_sampler_overrides(load_spec(spec_path), **overrides)
+
+
+def _report_outcome(outcome: Any) -> None:
+    results = outcome.results
+    click.echo(f"wrote {outcome.out_dir}/report.html, report.pdf, results.csv, record.json, draws/")
+    for pair in results.pairs:
+        click.echo(f"  {pair.status:4}  {pair.key}: median rho {pair.rho.median:+.3f} "
+                   f"[{pair.rho.lower:+.3f}, {pair.rho.upper:+.3f}], n = {pair.n}")
+    if results.status == "fail":
+        names = ", ".join(p.key for p in results.failed)
+        click.echo(f"reportgen: {len(results.failed)} pair(s) failed the convergence checks: {names}", err=True)
+
+
+def _run(spec_path: Path, out: Path, **overrides: int | None) -> None:
+    from reportgen.runner import run
+
+    spec = _load(spec_path, **overrides)
+    outcome = run(spec, out, command_line=sys.argv, progress=_progress_printer())
+    _report_outcome(outcome)
+    sys.exit(outcome.exit_code)
+
+
+sampler_options = [
+    click.option("--seed", type=int, default=None, help="Override sampler.seed (the master seed)."),
+    click.option("--draws", type=int, default=None, help="Override sampler.draws (kept draws per chain)."),
+    click.option("--tune", type=int, default=None, help="Override sampler.tune (tuning draws per chain)."),
+    click.option("--chains", type=int, default=None, help="Override sampler.chains."),
+]
+
+
+def with_sampler_options(func: F) -> F:
+    for option in reversed(sampler_options):
+        func = option(func)
+    return func
+
+
+@main.command("run")
+@click.argument("spec_path", metavar="SPEC", type=click.Path(path_type=Path))
+@click.option("--out", "out", type=click.Path(path_type=Path), required=True, help="Output folder.")
+@with_sampler_options
+@user_errors
+def run_command(spec_path: Path, out: Path, **overrides: int | None) -> None:
+    """Fit every pair of SPEC and write the report, results and record to --out."""
+    _run(spec_path, out, **overrides)
+
+
+@main.command("check")
+@click.argument("spec_path", metavar="SPEC", type=click.Path(path_type=Path))
+@user_errors
+def check_command(spec_path: Path) -> None:
+    """Validate SPEC and its data without fitting anything."""
+    from reportgen.runner import prepare
+
+    prepared = prepare(_load(spec_path))
+    click.echo(f"{spec_path}: spec and data are valid; {len(prepared.pairs)} pair(s) "
+               f"from {prepared.table.n_rows:,} rows of {prepared.table.path.name}")
+    for pair in prepared.pairs:
+        dropped = f", {pair.n_dropped} dropped for missing values" if pair.n_dropped else ""
+        click.echo(f"  {pair.pair.key}: n = {pair.stats.n}{dropped}")
+
+
+@main.command("demo")
+@click.option("--out", "out", type=click.Path(path_type=Path), default=Path("reportgen-demo"),
+              show_default=True, help="Output folder.")
+@with_sampler_options
+@user_errors
+def demo_command(out: Path, **overrides: int | None) -> None:
+    """Run the bundled demo (an invented river-monitoring survey)."""
+    _run(DEMO_SPEC, out, **overrides)
+
+
+@main.command("init")
+@click.argument("data_path", metavar="DATA", type=click.Path(path_type=Path))
+@click.option("--pair", "pairs", nargs=2, multiple=True, required=True, metavar="X Y",
+              help="A pair of columns to analyse; repeat for more pairs.")
+@click.option("-o", "--output", "output", type=click.Path(path_type=Path), required=True,
+              help="Where to write the spec.")
+@click.option("--title", default="Correlation report", show_default=True)
+@click.option("--force", is_flag=True, help="Overwrite an existing spec file.")
+@user_errors
+def init_command(data_path: Path, pairs: tuple[tuple[str, str], ...], output: Path, title: str,
+                 force: bool) -> None:
+    """Write a commented starter spec for DATA with the given pairs."""
+    from reportgen.spec import load_spec
+    from reportgen.starter import relative_data_path, starter_spec
+
+    if output.exists() and not force:
+        raise SpecError(f"{output}: already exists; choose another -o path or add --force")
+    if not data_path.is_file():
+        raise SpecError(f"{data_path}: data file not found; give the path to a CSV, Excel or Parquet file")
+    text = starter_spec(relative_data_path(data_path, output), [tuple(p) for p in pairs], title)
+    output.parent.mkdir(parents=True, exist_ok=True)
+    temporary = output.with_name(output.name + ".tmp")
+    temporary.write_text(text, encoding="utf-8")
+    try:
+        from reportgen.runner import prepare
+
+        prepare(load_spec(temporary))
+    except ReportgenError as exc:
+        temporary.unlink()
+        raise SpecError(str(exc).replace(str(temporary.resolve()), str(output))) from None
+    os.replace(temporary, output)
+    click.echo(f"wrote {output}; edit it, then run: reportgen run {output} --out REPORT_FOLDER")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,130 @@
+"""Convergence diagnostics as data, with the thresholds as explicit arguments.
+
+Rank-normalised split R-hat and bulk/tail ESS follow Vehtari, Gelman, Simpson,
+Carpenter & Buerkner (2021, Bayesian Analysis 16(2)); E-BFMI follows
+Betancourt (2016, arXiv:1604.00695). ArviZ computes all of them.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from reportgen.spec import Diagnostics as Thresholds
+
+STATUS_ORDER = {"pass": 0, "warn": 1, "fail": 2}
+
+
+@dataclass(frozen=True)
+class ParameterDiagnostics:
+    name: str
+    rhat: float
+    ess_bulk: float
+    ess_tail: float
+    mcse_mean: float
+    mcse_median: float
+
+
+@dataclass(frozen=True)
+class Diagnosis:
+    parameters: tuple[ParameterDiagnostics, ...]
+    divergences: int
+    total_draws: int
+    bfmi_min: float
+    status: str  # "pass" | "warn" | "fail"
+    reasons: tuple[str, ...]
+
+    @property
+    def rhat_max(self) -> float:
+        return max(p.rhat for p in self.parameters)
+
+    @property
+    def ess_bulk_min(self) -> float:
+        return min(p.ess_bulk for p in self.parameters)
+
+    @property
+    def ess_tail_min(self) -> float:
+        return min(p.ess_tail for p in self.parameters)
+
+
+def _nan_to(value: float, fallback: float) -> float:
+    return fallback if not np.isfinite(value) else float(value)
+
+
+def parameter_diagnostics(draws: dict[str, np.ndarray]) -> tuple[ParameterDiagnostics, ...]:
+    """Diagnostics of each parameter's (chain, draw) array."""
+    import arviz as az
+
+    dataset = az.convert_to_dataset({name: np.asarray(values) for name, values in draws.items()})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        rhat = az.rhat(dataset, method="rank")
+        ess_bulk = az.ess(dataset, method="bulk")
+        ess_tail = az.ess(dataset, method="tail")
+        mcse_mean = az.mcse(dataset, method="mean")
+        mcse_median = az.mcse(dataset, method="quantile", prob=0.5)
+    return tuple(
+        ParameterDiagnostics(
+            name=name,
+            # a single chain has no between-chain R-hat: unknown (infinite), so it cannot pass
+            rhat=_nan_to(float(rhat[name]), float("inf")),
+            ess_bulk=_nan_to(float(ess_bulk[name]), 0.0),
+            ess_tail=_nan_to(float(ess_tail[name]), 0.0),
+            mcse_mean=_nan_to(float(mcse_mean[name]), float("inf")),
+            mcse_median=_nan_to(float(mcse_median[name]), float("inf")),
+        )
+        for name in draws
+    )
+
+
+def bfmi(energy: np.ndarray) -> np.ndarray:
+    """E-BFMI per chain (Betancourt 2016, eq. 3.3), from the (chain, draw) energies."""
+    import arviz as az
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.asarray(az.bfmi(np.atleast_2d(energy)), dtype=float)
+
+
+def diagnose(
+    draws: dict[str, np.ndarray],
+    diverging: np.ndarray,
+    energy: np.ndarray,
+    thresholds: Thresholds,
+) -> Diagnosis:
+    """Judge a fit: "fail" breaks a hard threshold, "warn" a soft one.
+
+    Hard: R-hat >= ``rhat_max``, bulk or tail ESS < ``ess_min``, more than
+    ``max_divergences`` divergent transitions. Soft: E-BFMI below ``bfmi_min``.
+    """
+    parameters = parameter_diagnostics(draws)
+    divergences = int(np.sum(diverging))
+    bfmi_values = bfmi(energy)
+    bfmi_min = float(np.nanmin(bfmi_values)) if np.isfinite(bfmi_values).any() else float("nan")
+    fails: list[str] = []
+    warns: list[str] = []
+    worst_rhat = max(parameters, key=lambda p: p.rhat)
+    if not worst_rhat.rhat < thresholds.rhat_max:
+        fails.append(f"R-hat of {worst_rhat.name} is {worst_rhat.rhat:.3f} "
+                     f"(must be below {thresholds.rhat_max:g})")
+    for kind in ("bulk", "tail"):
+        worst = min(parameters, key=lambda p, k=kind: getattr(p, f"ess_{k}"))
+        value = getattr(worst, f"ess_{kind}")
+        if value < thresholds.ess_min:
+            fails.append(f"{kind} ESS of {worst.name} is {value:.0f} "
+                         f"(needs at least {thresholds.ess_min:g})")
+    if divergences > thresholds.max_divergences:
+        fails.append(f"{divergences} divergent transitions (at most {thresholds.max_divergences} allowed)")
+    if np.isfinite(bfmi_min) and bfmi_min < thresholds.bfmi_min:
+        warns.append(f"E-BFMI is {bfmi_min:.2f} (below {thresholds.bfmi_min:g})")
+    status = "fail" if fails else "warn" if warns else "pass"
+    return Diagnosis(
+        parameters=parameters,
+        divergences=divergences,
+        total_draws=int(np.size(diverging)),
+        bfmi_min=bfmi_min,
+        status=status,
+        reasons=tuple(fails + warns),
+    )

@@ -1,0 +1,30 @@
+"""Errors a user can cause, each worded for the user.
+
+Every error here is caught by the command line, printed as one line and
+turned into exit code 2 (see ``reportgen.cli``). Anything else escaping is a
+bug in reportgen, not in the user's input.
+"""
+
+from __future__ import annotations
+
+
+class ReportgenError(Exception):
+    """Base class: a problem with the user's input that the user can fix."""
+
+    exit_code = 2
+
+
+class SpecError(ReportgenError):
+    """The spec file is unreadable or breaks a rule; the message names the key path."""
+
+
+class DataError(ReportgenError):
+    """The data table is unreadable or unusable; the message names the file and column."""
+
+
+class OutputError(ReportgenError):
+    """The output folder cannot be written safely."""
+
+
+class ReportAssetError(ReportgenError):
+    """A report asset (logo, template folder) is missing or not acceptable."""

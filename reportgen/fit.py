@@ -1,0 +1,113 @@
+"""Stage 4: fit each pair's model, compiling each model structure only once.
+
+PyMC's own ``pm.sample`` recompiles the log-density and its gradient on every
+call, even when only ``pm.Data`` changes. Here each structure is compiled once
+by nutpie and every pair is fed to the compiled model with ``with_data``, so a
+pair costs a fraction of a second after the first compile (see
+``benchmarks/bench_fit.py`` for the measured ratios).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import time
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from reportgen.data import PairData
+from reportgen.model import ModelInputs, Standardisation, build_model, model_inputs, to_data_units
+from reportgen.spec import Sampler
+
+PARAMETERS = ("mu_x", "mu_y", "sigma_x", "sigma_y", "rho")
+
+
+def derive_seed(master_seed: int, x: str, y: str) -> int:
+    """A pair's seed from the master seed and the pair's identity alone.
+
+    Adding, removing or reordering pairs never changes another pair's draws
+    (numpy SeedSequence with a spawn key taken from the column names).
+    """
+    digest = hashlib.sha256(f"{x}\x1f{y}".encode()).digest()
+    spawn_key = tuple(int.from_bytes(digest[i:i + 4], "little") for i in range(0, 16, 4))
+    sequence = np.random.SeedSequence(entropy=master_seed, spawn_key=spawn_key)
+    return int(sequence.generate_state(1, dtype=np.uint32)[0])
+
+
+@dataclass(frozen=True)
+class PairFit:
+    """Posterior draws of one pair in the data's units, shaped (chain, draw)."""
+
+    key: str
+    seed: int
+    draws: dict[str, np.ndarray]
+    diverging: np.ndarray
+    energy: np.ndarray
+    inference_data: Any = field(repr=False)
+    seconds: float
+    compile_seconds: float
+
+
+class Fitter:
+    """Holds compiled models, one per model structure, for reuse across pairs."""
+
+    def __init__(self, sampler: Sampler, cores: int | None = None) -> None:
+        self.sampler = sampler
+        self.cores = cores or max(1, min(sampler.chains, os.cpu_count() or 1))
+        self._compiled: dict[str, Any] = {}
+        self.compile_seconds: dict[str, float] = {}
+
+    def _compiled_for(self, inputs: ModelInputs) -> tuple[Any, float]:
+        if inputs.structure in self._compiled:
+            return self._compiled[inputs.structure], 0.0
+        import nutpie
+
+        started = time.perf_counter()
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UserWarning)
+            compiled = nutpie.compile_pymc_model(build_model(inputs))
+        seconds = time.perf_counter() - started
+        self._compiled[inputs.structure] = compiled
+        self.compile_seconds[inputs.structure] = seconds
+        return compiled, seconds
+
+    def fit(self, pair: PairData, master_seed: int) -> PairFit:
+        import nutpie
+
+        inputs = model_inputs(pair.stats, pair.pair.priors)
+        compiled, compile_seconds = self._compiled_for(inputs)
+        seed = derive_seed(master_seed, pair.pair.x, pair.pair.y)
+        started = time.perf_counter()
+        with_data = compiled.with_data(**inputs.values)
+        idata = nutpie.sample(
+            with_data,
+            draws=self.sampler.draws,
+            tune=self.sampler.tune,
+            chains=self.sampler.chains,
+            cores=self.cores,
+            seed=seed,
+            target_accept=self.sampler.target_accept,
+            progress_bar=False,
+            save_warmup=False,
+        )
+        seconds = time.perf_counter() - started
+        posterior = idata.posterior
+        scale = Standardisation.of(pair.stats)
+        draws = to_data_units(posterior["mu_z"].values, posterior["sigma_z"].values, scale)
+        draws["rho"] = posterior["rho"].values
+        for name in PARAMETERS:
+            idata.posterior[name] = (("chain", "draw"), draws[name])
+        stats = idata.sample_stats
+        return PairFit(
+            key=pair.pair.key,
+            seed=seed,
+            draws={name: np.asarray(draws[name], dtype=float) for name in PARAMETERS},
+            diverging=np.asarray(stats["diverging"].values, dtype=bool),
+            energy=np.asarray(stats["energy"].values, dtype=float),
+            inference_data=idata,
+            seconds=seconds,
+            compile_seconds=compile_seconds,
+        )

@@ -1,0 +1,158 @@
+"""Plain-language readings of the numbers. Every sentence in a report is built
+here, in tested functions; the templates only lay them out.
+"""
+
+from __future__ import annotations
+
+from reportgen.spec import Rope, Rule
+
+# Cohen (1988), Statistical Power Analysis for the Behavioral Sciences, 2nd ed.,
+# sec. 3.2: r = 0.1 small, 0.3 medium, 0.5 large. Benchmarks, not laws of nature.
+STRENGTH_BANDS = ((0.1, "negligible"), (0.3, "weak"), (0.5, "moderate"), (1.01, "strong"))
+
+
+def strength_word(rho: float) -> str:
+    size = abs(rho)
+    for bound, word in STRENGTH_BANDS:
+        if size < bound:
+            return word
+    return "strong"
+
+
+def direction_word(rho: float) -> str:
+    return "positive" if rho > 0 else "negative" if rho < 0 else "no"
+
+
+def format_probability(p: float, draws: int | None = None) -> str:
+    """Probabilities from draws are never shown as exactly 0 or 1."""
+    if p >= 0.9995:
+        return "> 0.999"
+    if p <= 0.0005:
+        return "< 0.001"
+    return f"{p:.3f}"
+
+
+def format_number(value: float, digits: int = 3) -> str:
+    """Significant-figure formatting that keeps small and large values readable."""
+    if value != value:  # NaN
+        return "n/a"
+    if value == 0:
+        return "0"
+    magnitude = abs(value)
+    if 1e-3 <= magnitude < 1e6:
+        decimals = max(0, digits - 1 - int(_floor_log10(magnitude)))
+        return f"{value:,.{decimals}f}"
+    return f"{value:.{digits - 1}e}"
+
+
+def _floor_log10(value: float) -> int:
+    import math
+
+    return math.floor(math.log10(value))
+
+
+def format_rho(value: float) -> str:
+    return f"{value:+.2f}".replace("+", "") if value >= 0 else f"\u2212{abs(value):.2f}"
+
+
+def rule_statement(rule: Rule) -> str:
+    """The rule as a short statement about rho, e.g. "ρ > 0.50"."""
+    if rule.statement == "above":
+        return f"\u03c1 > {format_rho(rule.threshold or 0.0)}"
+    if rule.statement == "below":
+        return f"\u03c1 < {format_rho(rule.threshold or 0.0)}"
+    return f"{format_rho(rule.lower or 0.0)} < \u03c1 < {format_rho(rule.upper or 0.0)}"
+
+
+def rule_verdict(probability: float, required: float) -> str:
+    return "met" if probability >= required else "not met"
+
+
+def rule_sentence(rule: Rule, probability: float) -> str:
+    verdict = rule_verdict(probability, rule.required_probability)
+    name = rule.description or rule.name.replace("_", " ")
+    shown = format_probability(probability)
+    base = (f"The posterior probability that {rule_statement(rule)} is {shown}; "
+            f"the rule \u201c{name}\u201d asks for at least {rule.required_probability:.2f}, ")
+    if verdict == "met":
+        return base + "so it is met."
+    if probability <= 1.0 - rule.required_probability:
+        return base + "so it is not met, and the data point the other way."
+    return base + "so it is not met: the data do not settle it either way."
+
+
+def rope_sentence(rope: Rope, probability: float, decision: str, mass: float) -> str:
+    band = f"{format_rho(rope.lower)} to {format_rho(rope.upper)}"
+    start = (f"The probability that \u03c1 lies in the band treated as practically zero ({band}) "
+             f"is {format_probability(probability)}. ")
+    if decision == "practically_zero":
+        return start + f"The whole {mass:.0%} HDI lies inside the band: the correlation is practically zero."
+    if decision == "not_zero":
+        return start + f"The whole {mass:.0%} HDI lies outside the band: the correlation is not practically zero."
+    return start + f"The {mass:.0%} HDI overlaps the band's edge, so the data do not decide the question."
+
+
+def pair_paragraph(
+    *,
+    x_label: str,
+    y_label: str,
+    n: int,
+    n_dropped: int,
+    median: float,
+    lower: float,
+    upper: float,
+    mass: float,
+    interval_name: str,
+    p_positive: float,
+    r2_median: float,
+) -> str:
+    """The opening reading of one pair's result, in plain words."""
+    dropped = (f" ({n_dropped} row{'s' if n_dropped != 1 else ''} with a missing value "
+               "left out)" if n_dropped else "")
+    strength = strength_word(median)
+    direction = direction_word(median)
+    parts = [
+        f"Across {n:,} complete pairs of {x_label} and {y_label}{dropped}, the posterior median "
+        f"correlation is {format_rho(median)}, with a {mass:.0%} {interval_name} from "
+        f"{format_rho(lower)} to {format_rho(upper)}.",
+    ]
+    if lower > 0 or upper < 0:
+        parts.append(f"The interval lies wholly on the {'positive' if lower > 0 else 'negative'} side of zero: "
+                     f"a {strength} {direction} association by common benchmarks.")
+    else:
+        parts.append("The interval includes zero, so the data are consistent with no linear "
+                     "association as well as a modest one in either direction.")
+    parts.append(f"The probability that the correlation is positive is {format_probability(p_positive)}.")
+    share = r2_median * 100
+    parts.append(f"A straight line in {x_label} would account for about {share:.0f}% of the variation "
+                 f"in {y_label} (posterior median of \u03c1\u00b2).")
+    return " ".join(parts)
+
+
+def diagnostics_sentence(status: str, reasons: tuple[str, ...]) -> str:
+    if status == "pass":
+        return "The sampler converged: every convergence check passed its threshold."
+    joined = "; ".join(reasons)
+    if status == "warn":
+        return f"The sampler converged, with a caution: {joined}."
+    return (f"The sampler did not meet the convergence thresholds ({joined}); "
+            "treat this pair's numbers as unreliable until it is re-run with more draws.")
+
+
+def prior_text_rho(a: float, b: float) -> str:
+    if a == 1.0 and b == 1.0:
+        return "\u03c1 ~ Uniform(\u22121, 1)"
+    return f"(\u03c1 + 1)/2 ~ Beta({a:g}, {b:g})"
+
+
+def prior_text_means(units: str, location: float, scale: float) -> str:
+    if units == "scaled":
+        return f"\u03bc\u2c7c ~ Normal(sample mean, {scale:g} \u00d7 sample SD)"
+    return f"\u03bc\u2c7c ~ Normal({location:g}, {scale:g}) in the data's units"
+
+
+def prior_text_sds(family: str, units: str, scale: float, nu: float) -> str:
+    scale_text = f"{scale:g} \u00d7 sample SD" if units == "scaled" else f"{scale:g}, data units"
+    if family == "half_student_t":
+        return f"\u03c3\u2c7c ~ Half-Student-t(\u03bd = {nu:g}, scale {scale_text})"
+    return f"\u03c3\u2c7c ~ Half-normal(scale {scale_text})"

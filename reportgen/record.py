@@ -1,0 +1,138 @@
+"""The run record: everything a reviewer needs to trace and re-run a report.
+
+The record has two parts. ``reproducible`` holds only what the inputs and the
+software determine (hashes, resolved spec, seeds, versions, platform,
+diagnostics), so it is identical when a run is repeated and is what the
+report's appendix shows. ``run`` holds what changes every time (clock times,
+wall times, the command line).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import importlib.metadata
+import platform
+import sys
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from reportgen import __version__
+from reportgen.data import Table
+from reportgen.fit import PairFit
+from reportgen.results import RunResults
+from reportgen.spec import Spec
+
+SCIENTIFIC_PACKAGES = (
+    "numpy", "scipy", "pandas", "pymc", "pytensor", "arviz", "nutpie", "numba", "xarray",
+    "h5netcdf", "matplotlib", "jinja2", "weasyprint", "pydantic", "click", "openpyxl", "pyarrow",
+)
+
+
+def package_versions() -> dict[str, str]:
+    versions = {"python": platform.python_version()}
+    for name in SCIENTIFIC_PACKAGES:
+        try:
+            versions[name] = importlib.metadata.version(name)
+        except importlib.metadata.PackageNotFoundError:
+            versions[name] = "not installed"
+    return versions
+
+
+def platform_fingerprint() -> dict[str, str]:
+    """Same seed gives the same draws only on the same platform and BLAS (see PITFALLS)."""
+    blas = "unknown"
+    try:
+        config = np.show_config(mode="dicts")
+        blas_info = config.get("Build Dependencies", {}).get("blas", {})
+        blas = f"{blas_info.get('name', '?')} {blas_info.get('version', '')}".strip()
+    except Exception:  # numpy's config reporting differs across builds; the record must not fail
+        pass
+    return {
+        "system": platform.system(),
+        "release": platform.release(),
+        "machine": platform.machine(),
+        "python_implementation": platform.python_implementation(),
+        "numpy_blas": blas,
+        "byteorder": sys.byteorder,
+    }
+
+
+def draws_sha256(fit: PairFit) -> str:
+    """Hash of the draws' bytes: netCDF files carry timestamps, the arrays do not."""
+    digest = hashlib.sha256()
+    for name in sorted(fit.draws):
+        digest.update(name.encode())
+        digest.update(np.ascontiguousarray(fit.draws[name], dtype="<f8").tobytes())
+    return digest.hexdigest()
+
+
+@dataclass
+class RunClock:
+    started: dt.datetime = field(default_factory=lambda: dt.datetime.now(dt.UTC))
+    pair_seconds: dict[str, float] = field(default_factory=dict)
+    compile_seconds: dict[str, float] = field(default_factory=dict)
+
+
+def build_record(
+    spec: Spec,
+    table: Table,
+    results: RunResults,
+    fits: dict[str, PairFit],
+    clock: RunClock,
+    command_line: list[str],
+    cores: int,
+) -> dict[str, Any]:
+    document = spec.document
+    pairs = []
+    for pair in results.pairs:
+        fit = fits[pair.key]
+        d = pair.diagnosis
+        pairs.append({
+            "pair": pair.key,
+            "x": pair.x,
+            "y": pair.y,
+            "rows_used": pair.n,
+            "rows_dropped": pair.n_dropped,
+            "seed": pair.seed,
+            "draws_sha256": draws_sha256(fit),
+            "status": d.status,
+            "status_reasons": list(d.reasons),
+            "rhat_max": round(d.rhat_max, 6),
+            "ess_bulk_min": round(d.ess_bulk_min, 3),
+            "ess_tail_min": round(d.ess_tail_min, 3),
+            "divergences": d.divergences,
+            "bfmi_min": round(d.bfmi_min, 6),
+        })
+    finished = dt.datetime.now(dt.UTC)
+    return {
+        "reproducible": {
+            "tool": "reportgen",
+            "tool_version": __version__,
+            "spec_file": spec.source_path.name,
+            "spec_sha256": spec.source_sha256,
+            "resolved_spec": document.model_dump(mode="json"),
+            "data_file": table.path.name,
+            "data_sha256": table.sha256,
+            "data_rows": table.n_rows,
+            "data_encoding": table.encoding or None,
+            "engine": "mcmc (NUTS, nutpie; model compiled once per prior structure)",
+            "sampler": document.sampler.model_dump(mode="json") | {"cores": cores},
+            "master_seed": document.sampler.seed,
+            "seed_derivation": "numpy SeedSequence(master_seed, spawn_key = SHA-256 of 'x\\x1fy')",
+            "pairs": pairs,
+            "overall_status": results.status,
+            "versions": package_versions(),
+            "platform": platform_fingerprint(),
+        },
+        "run": {
+            "started_utc": clock.started.isoformat(timespec="seconds"),
+            "finished_utc": finished.isoformat(timespec="seconds"),
+            "wall_seconds_total": round((finished - clock.started).total_seconds(), 3),
+            "wall_seconds_per_pair": {k: round(v, 3) for k, v in clock.pair_seconds.items()},
+            "compile_seconds": {k: round(v, 3) for k, v in clock.compile_seconds.items()},
+            "command_line": command_line,
+        },
+    }

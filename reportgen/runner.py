@@ -1,0 +1,182 @@
+"""Orchestration: spec -> data -> fits -> results -> record -> report -> files.
+
+Everything the run can refuse (spec, data, assets, output folder) is checked
+before the first fit. Outputs are written into a staging folder beside the
+target and moved into place only when all of them are complete, so a failed
+or interrupted run leaves earlier outputs untouched and no half-written file.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import shutil
+import sys
+import tempfile
+import time
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+
+from reportgen import report
+from reportgen.data import PairData, Table, load_pairs, load_table
+from reportgen.errors import OutputError
+from reportgen.fit import Fitter, PairFit
+from reportgen.record import RunClock, build_record
+from reportgen.results import RunResults, pair_result, results_rows, run_results
+from reportgen.spec import Spec
+
+OUTPUT_FILES = ("report.html", "report.pdf", "results.csv", "record.json")
+DRAWS_FOLDER = "draws"
+
+ProgressCallback = Callable[[str, int, int], None]
+
+
+@dataclass(frozen=True)
+class Prepared:
+    spec: Spec
+    table: Table
+    pairs: tuple[PairData, ...]
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    out_dir: Path
+    results: RunResults
+    refused_urls: tuple[str, ...]
+
+    @property
+    def exit_code(self) -> int:
+        return 1 if self.results.status == "fail" else 0
+
+
+def prepare(spec: Spec) -> Prepared:
+    """Validate the data against the spec; raises our own errors, fits nothing."""
+    table = load_table(spec)
+    pairs = load_pairs(spec, table)
+    report.logo_data_uri(spec)  # a bad logo is refused now, not after the fits
+    if spec.document.report.templates:
+        report.template_folders((spec.base_dir / spec.document.report.templates).resolve())
+    return Prepared(spec=spec, table=table, pairs=pairs)
+
+
+def check_output_folder(out_dir: Path, prepared: Prepared) -> None:
+    protected = {prepared.table.path.resolve(), prepared.spec.source_path.resolve()}
+    if out_dir.exists() and not out_dir.is_dir():
+        raise OutputError(f"{out_dir}: --out must be a folder, and this is a file")
+    for name in OUTPUT_FILES:
+        if (out_dir / name).resolve() in protected:
+            raise OutputError(f"{out_dir}: writing {name} there would overwrite an input file; "
+                              "choose another --out folder")
+    draws = (out_dir / DRAWS_FOLDER).resolve()
+    if any(draws in path.parents for path in protected):
+        raise OutputError(f"{out_dir}: the {DRAWS_FOLDER}/ folder it replaces holds an input file; "
+                          "choose another --out folder")
+
+
+def safe_file_stem(key: str) -> str:
+    cleaned = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in key)
+    return cleaned.strip("_")[:120] or "pair"
+
+
+def fit_all(
+    prepared: Prepared,
+    fitter: Fitter,
+    clock: RunClock,
+    progress: ProgressCallback | None = None,
+) -> tuple[RunResults, dict[str, PairFit]]:
+    spec = prepared.spec
+    fits: dict[str, PairFit] = {}
+    results = []
+    total = len(prepared.pairs)
+    for index, pair in enumerate(prepared.pairs):
+        if progress:
+            progress(pair.pair.key, index, total)
+        started = time.perf_counter()
+        fit = fitter.fit(pair, spec.document.sampler.seed)
+        fits[pair.pair.key] = fit
+        results.append(pair_result(spec, pair, fit))
+        clock.pair_seconds[pair.pair.key] = time.perf_counter() - started
+    if progress:
+        progress("done", total, total)
+    clock.compile_seconds.update(fitter.compile_seconds)
+    return run_results(spec, tuple(results)), fits
+
+
+def results_csv(results: RunResults) -> str:
+    header, rows = results_rows(results)
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(header)
+    writer.writerows(rows)
+    return buffer.getvalue()
+
+
+@contextmanager
+def staging_folder(out_dir: Path) -> Iterator[Path]:
+    """A scratch folder next to ``out_dir``; removed whatever happens."""
+    parent = out_dir.resolve().parent
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        staging = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.staging-", dir=parent))
+    except OSError as exc:
+        raise OutputError(f"{out_dir}: cannot write to the output folder's parent ({exc.strerror})") from None
+    try:
+        yield staging
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+
+
+def publish(staging: Path, out_dir: Path) -> None:
+    """Move the finished files into ``out_dir``, each by an atomic rename."""
+    out_dir.mkdir(parents=True, exist_ok=True)
+    draws_target = out_dir / DRAWS_FOLDER
+    if (staging / DRAWS_FOLDER).exists():
+        old = out_dir / f".{DRAWS_FOLDER}.old"
+        if draws_target.exists():
+            shutil.rmtree(old, ignore_errors=True)
+            os.replace(draws_target, old)
+        os.replace(staging / DRAWS_FOLDER, draws_target)
+        shutil.rmtree(old, ignore_errors=True)
+    for name in OUTPUT_FILES:
+        os.replace(staging / name, out_dir / name)
+
+
+def run(
+    spec: Spec,
+    out_dir: Path,
+    *,
+    command_line: list[str] | None = None,
+    progress: ProgressCallback | None = None,
+    fitter: Fitter | None = None,
+) -> RunOutcome:
+    clock = RunClock()
+    prepared = prepare(spec)
+    check_output_folder(out_dir, prepared)
+    fitter = fitter or Fitter(spec.document.sampler)
+    if fitter.sampler != spec.document.sampler:
+        fitter = Fitter(spec.document.sampler, cores=fitter.cores)
+    results, fits = fit_all(prepared, fitter, clock, progress)
+    record = build_record(spec, prepared.table, results, fits, clock,
+                          command_line if command_line is not None else sys.argv, fitter.cores)
+    pair_data = {p.pair.key: p for p in prepared.pairs}
+    context = report.build_context(spec, results, pair_data, record)
+    user_templates = ((spec.base_dir / spec.document.report.templates).resolve()
+                      if spec.document.report.templates else None)
+    html = report.render_html(context, user_templates)
+    pdf, refused = report.render_pdf(html, context["meta"]["date"])
+    with staging_folder(out_dir) as staging:
+        (staging / "report.html").write_text(html, encoding="utf-8")
+        (staging / "report.pdf").write_bytes(pdf)
+        (staging / "results.csv").write_text(results_csv(results), encoding="utf-8")
+        (staging / "record.json").write_text(json.dumps(record, indent=2, ensure_ascii=False) + "\n",
+                                             encoding="utf-8")
+        draws_dir = staging / DRAWS_FOLDER
+        draws_dir.mkdir()
+        for key, fit in fits.items():
+            fit.inference_data.to_netcdf(str(draws_dir / f"{safe_file_stem(key)}.nc"), engine="h5netcdf")
+        publish(staging, out_dir)
+    return RunOutcome(out_dir=out_dir, results=results, refused_urls=refused)

@@ -1,0 +1,418 @@
+"""Stage 1: read and validate the TOML spec into frozen, typed objects.
+
+The spec is validated as a whole before any data is read or any model is
+fitted. Unknown keys are errors (with a suggestion), because a misspelt key
+that is silently ignored changes a report without anyone noticing.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import difflib
+import hashlib
+import itertools
+import tomllib
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+
+from reportgen.errors import SpecError
+
+RULE_NAME_PATTERN = r"^[a-z][a-z0-9_]{0,39}$"
+MAX_DRAWS = 200_000
+MAX_CHAINS = 64
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class ReportMeta(_Strict):
+    title: Annotated[str, Field(min_length=1, max_length=200)]
+    subtitle: str = ""
+    client: str = ""
+    author: str = ""
+    date: dt.date | None = None
+    confidentiality: str = "Confidential: prepared for the named client only."
+    logo: str = ""
+    templates: str = ""
+
+
+class DataSource(_Strict):
+    path: Annotated[str, Field(min_length=1)]
+    format: Literal["auto", "csv", "excel", "parquet"] = "auto"
+    sheet: str = ""
+    columns: tuple[str, ...] = ()
+    missing: Literal["listwise", "fail"] = "listwise"
+
+
+class Variable(_Strict):
+    label: str = ""
+    unit: str = ""
+
+
+class RhoPrior(_Strict):
+    family: Literal["uniform", "beta"] = "uniform"
+    a: Annotated[float, Field(gt=0, le=1e4)] = 1.0
+    b: Annotated[float, Field(gt=0, le=1e4)] = 1.0
+
+    @model_validator(mode="after")
+    def _uniform_has_unit_shapes(self) -> RhoPrior:
+        if self.family == "uniform" and (self.a != 1.0 or self.b != 1.0):
+            raise ValueError("a uniform prior takes no `a` or `b`; use family = \"beta\"")
+        return self
+
+    @property
+    def shapes(self) -> tuple[float, float]:
+        return (1.0, 1.0) if self.family == "uniform" else (self.a, self.b)
+
+
+class MeanPrior(_Strict):
+    family: Literal["normal"] = "normal"
+    units: Literal["scaled", "data"] = "scaled"
+    location: float = 0.0
+    scale: Annotated[float, Field(gt=0, le=1e12)] = 10.0
+
+    @model_validator(mode="after")
+    def _scaled_is_centred(self) -> MeanPrior:
+        if self.units == "scaled" and self.location != 0.0:
+            raise ValueError(
+                "with units = \"scaled\" the prior is centred on the sample mean; "
+                "set units = \"data\" to give a `location` in the data's units"
+            )
+        return self
+
+
+class SdPrior(_Strict):
+    family: Literal["half_normal", "half_student_t"] = "half_normal"
+    units: Literal["scaled", "data"] = "scaled"
+    scale: Annotated[float, Field(gt=0, le=1e12)] = 10.0
+    nu: Annotated[float, Field(gt=0, le=1e4)] = 3.0
+
+
+class Priors(_Strict):
+    rho: RhoPrior = RhoPrior()
+    means: MeanPrior = MeanPrior()
+    sds: SdPrior = SdPrior()
+
+
+class PriorOverrides(_Strict):
+    rho: RhoPrior | None = None
+    means: MeanPrior | None = None
+    sds: SdPrior | None = None
+
+
+class PairEntry(_Strict):
+    x: Annotated[str, Field(min_length=1)]
+    y: Annotated[str, Field(min_length=1)]
+    label: str = ""
+    priors: PriorOverrides = PriorOverrides()
+
+
+class PairSet(_Strict):
+    name: Annotated[str, Field(min_length=1)]
+    columns: Annotated[tuple[str, ...], Field(min_length=2, max_length=40)]
+    priors: PriorOverrides = PriorOverrides()
+
+
+class Rule(_Strict):
+    name: Annotated[str, Field(pattern=RULE_NAME_PATTERN)]
+    statement: Literal["above", "below", "between"]
+    threshold: Annotated[float, Field(ge=-1, le=1)] | None = None
+    lower: Annotated[float, Field(ge=-1, le=1)] | None = None
+    upper: Annotated[float, Field(ge=-1, le=1)] | None = None
+    required_probability: Annotated[float, Field(gt=0, lt=1)] = 0.95
+    description: str = ""
+
+    @model_validator(mode="after")
+    def _bounds_match_statement(self) -> Rule:
+        if self.statement in ("above", "below"):
+            if self.threshold is None:
+                raise ValueError(f"a rule with statement = \"{self.statement}\" needs `threshold`")
+            if self.lower is not None or self.upper is not None:
+                raise ValueError("`lower`/`upper` belong to statement = \"between\"; use `threshold`")
+        else:
+            if self.lower is None or self.upper is None:
+                raise ValueError("a rule with statement = \"between\" needs `lower` and `upper`")
+            if self.threshold is not None:
+                raise ValueError("statement = \"between\" takes `lower` and `upper`, not `threshold`")
+            if self.lower >= self.upper:
+                raise ValueError(f"`lower` ({self.lower}) must be below `upper` ({self.upper})")
+        return self
+
+    @property
+    def thresholds(self) -> tuple[float, ...]:
+        if self.threshold is not None:
+            return (self.threshold,)
+        assert self.lower is not None and self.upper is not None
+        return (self.lower, self.upper)
+
+
+class Rope(_Strict):
+    lower: Annotated[float, Field(ge=-1, le=0)] = -0.1
+    upper: Annotated[float, Field(ge=0, le=1)] = 0.1
+
+    @model_validator(mode="after")
+    def _non_empty(self) -> Rope:
+        if self.lower >= self.upper:
+            raise ValueError("the ROPE needs `lower` < `upper`")
+        return self
+
+
+class Summary(_Strict):
+    credible_mass: Annotated[float, Field(gt=0, lt=1)] = 0.95
+    interval: Literal["central", "hdi"] = "central"
+
+
+class Sampler(_Strict):
+    draws: Annotated[int, Field(ge=1, le=MAX_DRAWS)] = 1000
+    tune: Annotated[int, Field(ge=1, le=MAX_DRAWS)] = 1000
+    chains: Annotated[int, Field(ge=1, le=MAX_CHAINS)] = 4
+    target_accept: Annotated[float, Field(ge=0.5, lt=1)] = 0.8
+    seed: Annotated[int, Field(ge=0, lt=2**63)] = 20261201
+
+
+class Diagnostics(_Strict):
+    rhat_max: Annotated[float, Field(gt=1, le=2)] = 1.01
+    ess_min: Annotated[float, Field(ge=1)] = 400.0
+    max_divergences: Annotated[int, Field(ge=0)] = 0
+    bfmi_min: Annotated[float, Field(ge=0, le=1)] = 0.3
+
+
+class SpecDocument(_Strict):
+    """The spec exactly as written (after defaults)."""
+
+    report: ReportMeta
+    data: DataSource
+    variables: dict[str, Variable] = {}
+    pairs: tuple[PairEntry, ...] = ()
+    pair_sets: tuple[PairSet, ...] = ()
+    priors: Priors = Priors()
+    rules: tuple[Rule, ...] = ()
+    rope: Rope = Rope()
+    summary: Summary = Summary()
+    sampler: Sampler = Sampler()
+    diagnostics: Diagnostics = Diagnostics()
+
+    @model_validator(mode="after")
+    def _has_pairs(self) -> SpecDocument:
+        if not self.pairs and not self.pair_sets:
+            raise ValueError("the spec lists no pairs: add a [[pairs]] table with x and y, "
+                             "or a [[pair_sets]] table with columns")
+        names = [rule.name for rule in self.rules]
+        duplicated = sorted({n for n in names if names.count(n) > 1})
+        if duplicated:
+            raise ValueError(f"rule names must be unique; repeated: {', '.join(duplicated)}")
+        return self
+
+
+class PairSpec(_Strict):
+    """One pair to fit, with its priors resolved."""
+
+    x: str
+    y: str
+    label: str
+    priors: Priors
+    pair_set: str = ""
+
+    @property
+    def key(self) -> str:
+        """Stable identity of the pair, used in tables, file names and seeds."""
+        return f"{self.x} vs {self.y}"
+
+
+class Spec(_Strict):
+    """The validated spec, with pairs expanded and paths resolved."""
+
+    document: SpecDocument
+    source_path: Path
+    source_sha256: str
+    source_text: str
+    pairs: tuple[PairSpec, ...]
+
+    @property
+    def base_dir(self) -> Path:
+        return self.source_path.parent
+
+    @property
+    def data_path(self) -> Path:
+        return (self.base_dir / self.document.data.path).resolve()
+
+    @property
+    def columns_needed(self) -> tuple[str, ...]:
+        seen: dict[str, None] = {}
+        for pair in self.pairs:
+            seen.setdefault(pair.x)
+            seen.setdefault(pair.y)
+        return tuple(seen)
+
+    def variable(self, column: str) -> Variable:
+        return self.document.variables.get(column, Variable())
+
+    def display_name(self, column: str) -> str:
+        return self.variable(column).label or column
+
+
+def _merge_priors(base: Priors, overrides: PriorOverrides) -> Priors:
+    return Priors(
+        rho=overrides.rho or base.rho,
+        means=overrides.means or base.means,
+        sds=overrides.sds or base.sds,
+    )
+
+
+def expand_pairs(document: SpecDocument) -> tuple[PairSpec, ...]:
+    """Explicit pairs first, then every pair among each pair set's columns."""
+    pairs: list[PairSpec] = []
+    seen: dict[frozenset[str], str] = {}
+
+    def add(x: str, y: str, label: str, overrides: PriorOverrides, where: str, pair_set: str) -> None:
+        if x == y:
+            raise SpecError(f"{where}: a pair needs two different columns, got `{x}` twice")
+        identity = frozenset((x, y))
+        if identity in seen:
+            raise SpecError(f"{where}: the pair ({x}, {y}) is already listed at {seen[identity]}; "
+                            "remove one of them")
+        seen[identity] = where
+        merged = _merge_priors(document.priors, overrides)
+        pairs.append(PairSpec(x=x, y=y, label=label, priors=merged, pair_set=pair_set))
+
+    for index, entry in enumerate(document.pairs):
+        add(entry.x, entry.y, entry.label, entry.priors, f"pairs[{index}]", "")
+    for index, pair_set in enumerate(document.pair_sets):
+        repeated = sorted({c for c in pair_set.columns if pair_set.columns.count(c) > 1})
+        if repeated:
+            raise SpecError(f"pair_sets[{index}].columns: `{repeated[0]}` is listed twice")
+        for x, y in itertools.combinations(pair_set.columns, 2):
+            add(x, y, "", pair_set.priors, f"pair_sets[{index}] ({pair_set.name})", pair_set.name)
+    return tuple(pairs)
+
+
+def _model_fields(model: type[BaseModel]) -> list[str]:
+    return list(model.model_fields)
+
+
+def _fields_at(location: tuple[Any, ...]) -> list[str]:
+    """The valid keys of the table at ``location`` inside the spec, for suggestions."""
+    model: Any = SpecDocument
+    for part in location:
+        if isinstance(part, int) or model is None:
+            continue
+        if not (isinstance(model, type) and issubclass(model, BaseModel)):
+            return []
+        field = model.model_fields.get(str(part))
+        if field is None:
+            return []
+        annotation = field.annotation
+        model = _unwrap_model(annotation, part == "variables")
+    if isinstance(model, type) and issubclass(model, BaseModel):
+        return _model_fields(model)
+    return []
+
+
+def _unwrap_model(annotation: Any, is_mapping: bool) -> Any:
+    if is_mapping:
+        return Variable
+    args = getattr(annotation, "__args__", ())
+    for candidate in (annotation, *args):
+        if isinstance(candidate, type) and issubclass(candidate, BaseModel):
+            return candidate
+        for inner in getattr(candidate, "__args__", ()):
+            if isinstance(inner, type) and issubclass(inner, BaseModel):
+                return inner
+    return None
+
+
+def format_location(location: tuple[Any, ...]) -> str:
+    text = ""
+    for part in location:
+        if isinstance(part, int):
+            text += f"[{part}]"
+        else:
+            text += ("." if text else "") + str(part)
+    return text or "(top level)"
+
+
+def describe_validation_error(error: ValidationError, source: Path) -> str:
+    """Turn pydantic's report into one line that names the key path and the fix."""
+    problems = error.errors(include_url=False)
+    first = problems[0]
+    location = tuple(p for p in first["loc"] if not str(p).startswith("function-after"))
+    path = format_location(location)
+    kind = first["type"]
+    if kind == "extra_forbidden":
+        key = str(location[-1])
+        valid = _fields_at(location[:-1])
+        close = difflib.get_close_matches(key, valid, n=1, cutoff=0.6)
+        hint = f"; did you mean `{close[0]}`?" if close else ""
+        valid_text = f" Valid keys here: {', '.join(valid)}." if valid else ""
+        message = f"unknown key `{path}`{hint}{valid_text}"
+    elif kind == "missing":
+        message = f"`{path}` is required but missing"
+    else:
+        got = first.get("input")
+        got_text = "" if isinstance(got, dict | list) else f", got {got!r}"
+        detail = str(first["msg"]).removeprefix("Value error, ")
+        message = f"`{path}`: {detail}{got_text}"
+    more = len(problems) - 1
+    suffix = f" (and {more} more problem{'s' if more > 1 else ''})" if more else ""
+    return f"{source}: {message}{suffix}"
+
+
+def parse_spec_text(text: str, source: Path) -> SpecDocument:
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(f"{source}: not valid TOML ({exc}); check quotes, brackets and '=' signs") from None
+    try:
+        return SpecDocument.model_validate(raw)
+    except ValidationError as exc:
+        raise SpecError(describe_validation_error(exc, source)) from None
+    except ValueError as exc:  # validators raising outside a field
+        raise SpecError(f"{source}: {exc}") from None
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Read, validate and resolve a spec file.
+
+    Raises
+    ------
+    SpecError
+        For a missing or unreadable file, invalid TOML, or any rule broken.
+    """
+    source = Path(path)
+    if not source.exists():
+        raise SpecError(f"{source}: spec file not found; check the path")
+    if not source.is_file():
+        raise SpecError(f"{source}: is a folder, not a spec file")
+    raw_bytes = source.read_bytes()
+    try:
+        text = raw_bytes.decode("utf-8")
+    except UnicodeDecodeError:
+        raise SpecError(f"{source}: the spec must be UTF-8 text; re-save it as UTF-8") from None
+    document = parse_spec_text(text, source)
+    pairs = expand_pairs(document)
+    return Spec(
+        document=document,
+        source_path=source.resolve(),
+        source_sha256=hashlib.sha256(raw_bytes).hexdigest(),
+        source_text=text,
+        pairs=pairs,
+    )
+
+
+def with_sampler_overrides(spec: Spec, **overrides: int | None) -> Spec:
+    """A copy of ``spec`` with command-line sampler settings applied and re-validated."""
+    chosen = {k: v for k, v in overrides.items() if v is not None}
+    if not chosen:
+        return spec
+    merged = spec.document.sampler.model_dump() | chosen
+    try:
+        sampler = Sampler.model_validate(merged)
+    except ValidationError as exc:
+        first = exc.errors(include_url=False)[0]
+        key = format_location(tuple(first["loc"]))
+        raise SpecError(f"--{key}: {first['msg']}, got {first.get('input')!r}") from None
+    document = spec.document.model_copy(update={"sampler": sampler})
+    return spec.model_copy(update={"document": document})

@@ -1,0 +1,109 @@
+"""The starter spec written by ``reportgen init``: every default spelled out."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from reportgen.spec import Diagnostics, MeanPrior, RhoPrior, Rope, Sampler, SdPrior, Summary
+
+
+def _toml_string(value: str) -> str:
+    return json.dumps(value, ensure_ascii=False)  # a JSON string is a valid TOML basic string
+
+
+def starter_spec(data_path: str, pairs: list[tuple[str, str]], title: str = "Correlation report") -> str:
+    rho, means, sds = RhoPrior(), MeanPrior(), SdPrior()
+    rope, summary, sampler, diagnostics = Rope(), Summary(), Sampler(), Diagnostics()
+    pair_tables = "\n".join(
+        f"[[pairs]]\nx = {_toml_string(x)}\ny = {_toml_string(y)}\n# label = \"optional display title\"\n"
+        for x, y in pairs
+    )
+    columns = sorted({c for pair in pairs for c in pair})
+    variable_tables = "\n".join(
+        f"[variables.{_toml_string(c)}]\nlabel = {_toml_string(c)}\nunit = \"\"\n" for c in columns
+    )
+    return f"""# reportgen spec. Every key below is shown with its default; edit what you need.
+# Unknown keys are errors, so a typo is caught rather than ignored.
+
+[report]
+title = {_toml_string(title)}
+subtitle = ""
+client = ""          # who the report is for
+author = ""          # who prepared it
+# date = 2026-01-31  # printed on the report and used as the PDF's date; default: the day of the run
+confidentiality = "Confidential: prepared for the named client only."
+logo = ""            # optional PNG or JPEG, relative to this file, under 2 MB
+templates = ""       # optional folder of templates that override the shipped ones
+
+[data]
+path = {_toml_string(data_path)}   # relative to this spec file; CSV, Excel (.xlsx) or Parquet
+format = "auto"      # auto | csv | excel | parquet
+sheet = ""           # Excel only: which sheet (required when there are several)
+columns = []         # optional: restrict the table to these columns
+missing = "listwise" # listwise: drop rows missing either value of a pair | fail: refuse any missing value
+
+# Display labels and units, one table per column (optional).
+{variable_tables}
+# The pairs to analyse.
+{pair_tables}
+# All pairs among a list of columns (optional); the report adds a matrix figure.
+# [[pair_sets]]
+# name = "Group name"
+# columns = ["a", "b", "c"]
+
+# Priors. Any [[pairs]] or [[pair_sets]] entry can override one with e.g. [pairs.priors.rho].
+[priors.rho]
+family = "{rho.family}"   # uniform on [-1, 1] | beta: (rho + 1)/2 ~ Beta(a, b)
+# a = 2.0
+# b = 2.0
+
+[priors.means]
+family = "{means.family}"
+units = "{means.units}"     # scaled: Normal(sample mean, scale x sample SD) | data: Normal(location, scale)
+location = {means.location}
+scale = {means.scale}
+
+[priors.sds]
+family = "{sds.family}" # half_normal | half_student_t
+units = "{sds.units}"     # scaled: scale x sample SD | data: scale in the data's units
+scale = {sds.scale}
+nu = {sds.nu}            # half_student_t only
+
+# Decision rules: statements about rho and the posterior probability each must reach.
+# statement = "above" | "below" (with threshold) or "between" (with lower and upper).
+# [[rules]]
+# name = "material_positive"
+# statement = "above"
+# threshold = 0.3
+# required_probability = 0.95
+# description = "a material positive association"
+
+# The band of rho values treated as practically zero (ROPE).
+[rope]
+lower = {rope.lower}
+upper = {rope.upper}
+
+[summary]
+credible_mass = {summary.credible_mass}
+interval = "{summary.interval}"  # central (equal-tailed) | hdi (highest density)
+
+[sampler]
+draws = {sampler.draws}      # kept draws per chain
+tune = {sampler.tune}       # tuning draws per chain, discarded
+chains = {sampler.chains}
+target_accept = {sampler.target_accept}
+seed = {sampler.seed}   # master seed; each pair's seed is derived from it and the pair's columns
+
+[diagnostics]
+rhat_max = {diagnostics.rhat_max}     # fail at or above
+ess_min = {diagnostics.ess_min:g}        # fail below (bulk and tail)
+max_divergences = {diagnostics.max_divergences}  # fail above
+bfmi_min = {diagnostics.bfmi_min}      # caution below
+"""
+
+
+def relative_data_path(data: Path, spec_path: Path) -> str:
+    import os
+
+    return os.path.relpath(data.resolve(), spec_path.resolve().parent)
