@@ -24,6 +24,10 @@ from reportgen.spec import Sampler
 
 PARAMETERS = ("mu_x", "mu_y", "sigma_x", "sigma_y", "rho")
 
+# Compiled models live for the whole process: every Fitter (every spec run in this
+# process) reuses them. Keyed by model structure; the data are swapped per pair.
+_COMPILED: dict[str, Any] = {}
+
 
 def derive_seed(master_seed: int, x: str, y: str) -> int:
     """A pair's seed from the master seed and the pair's identity alone.
@@ -57,12 +61,11 @@ class Fitter:
     def __init__(self, sampler: Sampler, cores: int | None = None) -> None:
         self.sampler = sampler
         self.cores = cores or max(1, min(sampler.chains, os.cpu_count() or 1))
-        self._compiled: dict[str, Any] = {}
         self.compile_seconds: dict[str, float] = {}
 
     def _compiled_for(self, inputs: ModelInputs) -> tuple[Any, float]:
-        if inputs.structure in self._compiled:
-            return self._compiled[inputs.structure], 0.0
+        if inputs.structure in _COMPILED:
+            return _COMPILED[inputs.structure], 0.0
         import nutpie
 
         started = time.perf_counter()
@@ -70,7 +73,7 @@ class Fitter:
             warnings.simplefilter("ignore", UserWarning)
             compiled = nutpie.compile_pymc_model(build_model(inputs))
         seconds = time.perf_counter() - started
-        self._compiled[inputs.structure] = compiled
+        _COMPILED[inputs.structure] = compiled
         self.compile_seconds[inputs.structure] = seconds
         return compiled, seconds
 

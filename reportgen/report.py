@@ -329,7 +329,6 @@ def _font_css() -> tuple[str, dict[str, Path]]:
         font_style = "italic" if style == "italic" else "normal"
         rules.append(f'@font-face {{ font-family: "Report Sans"; src: url("{url}"); '
                      f"font-weight: {weight}; font-style: {font_style}; }}")
-    rules.append('body { font-family: "Report Sans", sans-serif; }')
     return "\n".join(rules), allowed
 
 

@@ -21,15 +21,11 @@ def central_interval(draws: np.ndarray, mass: float) -> tuple[float, float]:
 
 
 def hdi_interval(draws: np.ndarray, mass: float) -> tuple[float, float]:
-    """Shortest interval holding ``mass`` of the draws (highest density, unimodal case)."""
-    ordered = np.sort(np.ravel(draws))
-    count = ordered.size
-    inside = max(1, int(math.ceil(mass * count)))
-    if inside >= count:
-        return float(ordered[0]), float(ordered[-1])
-    widths = ordered[inside - 1:] - ordered[: count - inside + 1]
-    start = int(np.argmin(widths))
-    return float(ordered[start]), float(ordered[start + inside - 1])
+    """Shortest interval holding ``mass`` of the draws (ArviZ's HDI, unimodal case)."""
+    import arviz as az
+
+    lower, upper = az.hdi(np.ravel(draws), hdi_prob=mass)
+    return float(lower), float(upper)
 
 
 def interval(draws: np.ndarray, mass: float, kind: str) -> tuple[float, float]:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 import subprocess
 import sys
@@ -123,6 +124,12 @@ BUILDERS: dict[str, Callable[..., str]] = {
 }
 
 
+@functools.cache
+def default_svg(name: str) -> str:
+    """Each figure with default inputs, rendered once per test session."""
+    return BUILDERS[name]()
+
+
 # --------------------------------------------------------------------------
 # Properties every figure must have
 # --------------------------------------------------------------------------
@@ -130,19 +137,19 @@ BUILDERS: dict[str, Callable[..., str]] = {
 
 @pytest.mark.parametrize("name", BUILDERS)
 def test_returns_parseable_svg(name: str) -> None:
-    root = parse_svg(BUILDERS[name]())
+    root = parse_svg(default_svg(name))
     assert width_in(root) <= F.FULL_WIDTH + 1e-6
     assert root.find(f".//{SVG_NS}path") is not None
 
 
 @pytest.mark.parametrize("name", BUILDERS)
 def test_deterministic_bytes(name: str) -> None:
-    assert BUILDERS[name]() == BUILDERS[name]()
+    assert BUILDERS[name]() == default_svg(name)
 
 
 @pytest.mark.parametrize("name", BUILDERS)
 def test_no_date_creator_or_real_text(name: str) -> None:
-    svg = BUILDERS[name]()
+    svg = default_svg(name)
     assert "<dc:date>" not in svg
     assert "Matplotlib v" not in svg
     # text is drawn as paths, so there are no <text> elements needing fonts
@@ -165,7 +172,7 @@ def test_plain_text_disables_mathtext() -> None:
 
 def test_rc_params_are_restored() -> None:
     before = dict(mpl.rcParams)
-    build_forest()
+    build_matrix()
     assert mpl.rcParams["svg.hashsalt"] == before["svg.hashsalt"]
     assert mpl.rcParams["svg.fonttype"] == before["svg.fonttype"]
     assert mpl.rcParams["font.size"] == before["font.size"]
@@ -181,7 +188,7 @@ def test_deterministic_across_processes_and_no_pyplot() -> None:
     )
     out = subprocess.run([sys.executable, "-c", code], cwd=PROJECT_ROOT, check=True,
                          capture_output=True, text=True, timeout=60)
-    assert out.stdout == build_scatter(n=400) + build_forest()
+    assert out.stdout == build_scatter(n=400) + default_svg("forest")
 
 
 # --------------------------------------------------------------------------
@@ -291,11 +298,11 @@ def test_forest_accepts_missing_estimates_and_validates() -> None:
 
 
 def test_figure_widths_match_page_layout() -> None:
-    assert width_in(parse_svg(build_forest())) == pytest.approx(F.FULL_WIDTH)
-    assert width_in(parse_svg(build_params())) == pytest.approx(F.FULL_WIDTH)
-    assert width_in(parse_svg(build_scatter())) == pytest.approx(F.HALF_WIDTH)
-    assert width_in(parse_svg(build_rho())) == pytest.approx(F.HALF_WIDTH)
-    diagram = parse_svg(build_diagram())
+    assert width_in(parse_svg(default_svg("forest"))) == pytest.approx(F.FULL_WIDTH)
+    assert width_in(parse_svg(default_svg("params"))) == pytest.approx(F.FULL_WIDTH)
+    assert width_in(parse_svg(default_svg("scatter"))) == pytest.approx(F.HALF_WIDTH)
+    assert width_in(parse_svg(default_svg("rho"))) == pytest.approx(F.HALF_WIDTH)
+    diagram = parse_svg(default_svg("diagram"))
     assert (width_in(diagram), height_in(diagram)) == pytest.approx((6.8, 2.6))
 
 
