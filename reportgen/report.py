@@ -14,6 +14,7 @@ import base64
 import datetime as dt
 import json
 import logging
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -357,6 +358,17 @@ def render_pdf(html: str, report_date: str) -> tuple[bytes, tuple[str, ...]]:
     font_config = FontConfiguration()
     stylesheet = weasyprint.CSS(string=font_css, font_config=font_config, url_fetcher=fetcher)
     document = weasyprint.HTML(string=html, base_url=None, url_fetcher=fetcher)
-    pdf = document.write_pdf(stylesheets=[stylesheet], font_config=font_config,
-                             uncompressed_pdf=False, pdf_identifier=b"reportgen-" + report_date.encode())
+    # Font subsets carry a "modified" timestamp; fontTools takes it from SOURCE_DATE_EPOCH when set,
+    # so pinning it to the report's date makes the PDF bytes repeatable.
+    epoch = dt.datetime.combine(dt.date.fromisoformat(report_date), dt.time(), dt.UTC).timestamp()
+    saved = os.environ.get("SOURCE_DATE_EPOCH")
+    os.environ["SOURCE_DATE_EPOCH"] = str(int(epoch))
+    try:
+        pdf = document.write_pdf(stylesheets=[stylesheet], font_config=font_config,
+                                 pdf_identifier=b"reportgen-" + report_date.encode())
+    finally:
+        if saved is None:
+            os.environ.pop("SOURCE_DATE_EPOCH", None)
+        else:
+            os.environ["SOURCE_DATE_EPOCH"] = saved
     return pdf, tuple(refused)

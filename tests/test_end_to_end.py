@@ -1,0 +1,180 @@
+"""`reportgen run` end to end on small sampler settings: files, numbers, PDF, HTML, exit codes."""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from pypdf import PdfReader
+from scipy import stats
+
+from reportgen.cli import main
+from tests.conftest import correlated_frame, write_spec
+
+HOSTILE = '<script>alert(1)</script><img src="file:///etc/passwd">'
+
+SPEC_BODY = f"""
+[variables.a]
+label = 'Alpha {HOSTILE}'
+unit = "kg"
+
+[[pairs]]
+x = "a"
+y = "b"
+
+[[pairs]]
+x = "a"
+y = "c"
+label = "Alpha against noise"
+
+[[pair_sets]]
+name = "Trio"
+columns = ["b", "c", "d"]
+
+[[rules]]
+name = "positive"
+statement = "above"
+threshold = 0.0
+required_probability = 0.9
+"""
+
+
+@pytest.fixture(scope="module")
+def project(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    folder = tmp_path_factory.mktemp("e2e")
+    frame = correlated_frame(70, 0.7, seed=5)
+    rng = np.random.default_rng(6)
+    frame["c"] = rng.normal(size=70)
+    frame["d"] = frame["b"] * 0.5 + rng.normal(size=70)
+    frame.loc[[3, 10, 11], "c"] = np.nan
+    frame.to_csv(folder / "data.csv", index=False)
+    write_spec(folder, SPEC_BODY)
+    return folder
+
+
+def invoke(*args: str) -> object:
+    return CliRunner().invoke(main, list(args), catch_exceptions=False)
+
+
+@pytest.fixture(scope="module")
+def finished_run(project: Path) -> Path:
+    out = project / "out"
+    result = invoke("run", str(project / "spec.toml"), "--out", str(out))
+    assert result.exit_code == 0, result.output
+    return out
+
+
+def test_all_outputs_are_written(finished_run: Path) -> None:
+    for name in ("report.html", "report.pdf", "results.csv", "record.json"):
+        assert (finished_run / name).is_file()
+    assert len(list((finished_run / "draws").glob("*.nc"))) == 5  # 2 explicit pairs + 3 from the set
+
+
+def test_results_csv_columns_and_sample_r_match_scipy(project: Path, finished_run: Path) -> None:
+    """sample_r equals scipy.stats.pearsonr on the complete rows to 1e-12."""
+    rows = list(csv.DictReader((finished_run / "results.csv").open(encoding="utf-8")))
+    required = ["pair", "x", "y", "n", "n_dropped", "sample_r", "rho_mean", "rho_median", "rho_sd",
+                "rho_lower", "rho_upper", "rhat_max", "ess_bulk_min", "ess_tail_min", "divergences", "status",
+                "p_positive"]
+    assert list(rows[0])[:16] == required[:16]
+    assert "p_positive" in rows[0]
+    data = pd.read_csv(project / "data.csv")
+    for row in rows:
+        complete = data[[row["x"], row["y"]]].dropna()
+        expected = stats.pearsonr(complete[row["x"]], complete[row["y"]]).statistic
+        assert float(row["sample_r"]) == pytest.approx(expected, abs=1e-12)
+        assert int(row["n"]) == len(complete)
+        assert int(row["n_dropped"]) == len(data) - len(complete)
+        assert float(row["rho_lower"]) < float(row["rho_median"]) < float(row["rho_upper"])
+
+
+def test_record_traces_the_inputs(project: Path, finished_run: Path) -> None:
+    record = json.loads((finished_run / "record.json").read_text(encoding="utf-8"))
+    fixed = record["reproducible"]
+    assert fixed["data_sha256"] == hashlib.sha256((project / "data.csv").read_bytes()).hexdigest()
+    assert fixed["spec_sha256"] == hashlib.sha256((project / "spec.toml").read_bytes()).hexdigest()
+    assert {"pymc", "arviz", "numpy", "scipy", "python"} <= set(fixed["versions"])
+    assert len({p["seed"] for p in fixed["pairs"]}) == 5
+    assert record["run"]["wall_seconds_per_pair"]
+
+
+def test_pdf_has_every_pair_and_the_cautions(finished_run: Path) -> None:
+    reader = PdfReader(str(finished_run / "report.pdf"))
+    assert len(reader.pages) >= 8
+    text = " ".join(page.extract_text() for page in reader.pages)
+    for title in ("Alpha against noise", "Cautions", "Association is not causation", "Appendix: run record"):
+        assert title in text
+    assert reader.pages[1].extract_text().count("Page 2 of") == 1
+
+
+def test_html_escapes_labels_and_is_self_contained(finished_run: Path) -> None:
+    html = (finished_run / "report.html").read_text(encoding="utf-8")
+    assert "<script>" not in html
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in html
+    assert 'src="file:' not in html and "http://" not in html and "https://" not in html
+
+
+def test_same_inputs_give_identical_report_bytes(project: Path, finished_run: Path) -> None:
+    again = project / "again"
+    result = invoke("run", str(project / "spec.toml"), "--out", str(again))
+    assert result.exit_code == 0
+    assert (again / "report.pdf").read_bytes() == (finished_run / "report.pdf").read_bytes()
+    assert (again / "report.html").read_bytes() == (finished_run / "report.html").read_bytes()
+    assert (again / "results.csv").read_bytes() == (finished_run / "results.csv").read_bytes()
+
+
+def test_bad_spec_exits_2_with_one_line_and_touches_nothing(project: Path, finished_run: Path) -> None:
+    before = (finished_run / "report.pdf").read_bytes()
+    bad = project / "bad.toml"
+    bad.write_text((project / "spec.toml").read_text().replace('x = "a"\ny = "c"', 'x = "a"\ny = "cc"'))
+    result = CliRunner().invoke(main, ["run", str(bad), "--out", str(finished_run)])
+    assert result.exit_code == 2
+    lines = result.output.strip().splitlines()
+    assert len(lines) == 1 and "column `cc`" in lines[0] and "Traceback" not in result.output
+    assert (finished_run / "report.pdf").read_bytes() == before
+    fresh = project / "never"
+    result = CliRunner().invoke(main, ["run", str(bad), "--out", str(fresh)])
+    assert result.exit_code == 2 and not fresh.exists()
+
+
+def test_check_validates_without_fitting(project: Path) -> None:
+    result = invoke("check", str(project / "spec.toml"))
+    assert result.exit_code == 0
+    assert "5 pair(s)" in result.output
+
+
+def test_failed_diagnostics_exit_1_and_say_so_on_page_one(tmp_path: Path) -> None:
+    """Too few draws for the demo's ESS >= 400 threshold: the report is written and flags it."""
+    result = CliRunner().invoke(main, ["demo", "--out", str(tmp_path / "demo"), "--draws", "60",
+                                       "--tune", "60", "--chains", "2"])
+    assert result.exit_code == 1, result.output
+    first_page = PdfReader(str(tmp_path / "demo" / "report.pdf")).pages[0].extract_text()
+    assert "did not pass the convergence" in first_page
+
+
+def test_init_writes_a_spec_that_check_accepts(project: Path) -> None:
+    spec = project / "starter.toml"
+    result = invoke("init", str(project / "data.csv"), "--pair", "a", "b", "--pair", "c", "d", "-o", str(spec))
+    assert result.exit_code == 0, result.output
+    assert invoke("check", str(spec)).exit_code == 0
+    again = CliRunner().invoke(main, ["init", str(project / "data.csv"), "--pair", "a", "b", "-o", str(spec)])
+    assert again.exit_code == 2
+
+
+def test_pdf_renderer_refuses_files_and_network() -> None:
+    """Crafted markup that asks for a local file and a network address gets neither."""
+    from reportgen.report import render_pdf
+
+    html = ('<html><head><link rel="stylesheet" href="http://127.0.0.1:9/x.css"></head><body>'
+            '<img src="file:///etc/passwd"><p style="background: url(file:///etc/hostname)">x</p></body></html>')
+    pdf, refused = render_pdf(html, "2026-01-01")
+    assert pdf.startswith(b"%PDF")
+    assert any("etc/passwd" in url for url in refused)
+    assert any("127.0.0.1" in url for url in refused)
+    assert b"root:" not in pdf
