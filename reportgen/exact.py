@@ -225,8 +225,24 @@ def _log_gamma_ratio_half(m: int) -> float:
     x = float(m)
     inv = 1.0 / x
     inv2 = inv * inv
-    series = inv * (-1.0 / 8.0 + inv2 * (1.0 / 192.0 + inv2 * (-1.0 / 640.0 + inv2 * 17.0 / 14336.0)))
+    series = inv * (-1 / 8 + inv2 * (1 / 192 + inv2 * (-1 / 640 + inv2 * 17 / 14336)))
     return 0.5 * math.log(x) + series
+
+
+def _one_minus_plus_x(
+    one_minus_rho: np.ndarray, one_plus_rho: np.ndarray, r: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """``1 - rho r`` and ``1 + rho r`` as sums of non-negative terms (no cancellation)."""
+    abs_r = abs(r)
+    if r >= 0.0:
+        return (1.0 - abs_r) + abs_r * one_minus_rho, (1.0 - abs_r) + abs_r * one_plus_rho
+    return (1.0 - abs_r) + abs_r * one_plus_rho, (1.0 - abs_r) + abs_r * one_minus_rho
+
+
+def _log_kernel_remainder(one_minus_x: np.ndarray, one_plus_x: np.ndarray, m: int) -> np.ndarray:
+    """The O(1) part of log h: ``log[sqrt(pi/2) Gamma(m)/Gamma(m+1/2)] + log 2F1(...)``."""
+    log_const = 0.5 * math.log(math.pi / 2.0) - _log_gamma_ratio_half(m)
+    return log_const + _log_hyp2f1_half(0.5 * one_plus_x, 0.5 * one_minus_x, m)
 
 
 def _log_kernel_from_parts(
@@ -234,19 +250,11 @@ def _log_kernel_from_parts(
 ) -> np.ndarray:
     """log h(rho | n, r) from accurately computed ``1 - rho`` and ``1 + rho`` (1-D arrays)."""
     m = n - 1
-    abs_r = abs(r)
-    # 1 -/+ rho r written as sums of non-negative terms, so no cancellation near |rho r| = 1.
-    if r >= 0.0:
-        one_minus_x = (1.0 - abs_r) + abs_r * one_minus_rho
-        one_plus_x = (1.0 - abs_r) + abs_r * one_plus_rho
-    else:
-        one_minus_x = (1.0 - abs_r) + abs_r * one_plus_rho
-        one_plus_x = (1.0 - abs_r) + abs_r * one_minus_rho
-    log_const = 0.5 * math.log(math.pi / 2.0) - _log_gamma_ratio_half(m)
-    log_f = _log_hyp2f1_half(0.5 * one_plus_x, 0.5 * one_minus_x, m)
+    one_minus_x, one_plus_x = _one_minus_plus_x(one_minus_rho, one_plus_rho, r)
     with np.errstate(divide="ignore"):
         log_one_minus_rho2 = np.log(one_minus_rho) + np.log(one_plus_rho)
-    return 0.5 * m * log_one_minus_rho2 + log_const - (m - 0.5) * np.log(one_minus_x) + log_f
+    powers = 0.5 * m * log_one_minus_rho2 - (m - 0.5) * np.log(one_minus_x)
+    return powers + _log_kernel_remainder(one_minus_x, one_plus_x, m)
 
 
 # --------------------------------------------------------------------------- public functions
@@ -379,28 +387,62 @@ def _one_minus_plus_tanh(zeta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return 2.0 / (1.0 + np.exp(2.0 * zeta)), 2.0 / (1.0 + np.exp(-2.0 * zeta))
 
 
-def _log_integrand_z(zeta: np.ndarray, n: int, r: float, a: float, b: float) -> np.ndarray:
-    """log[prior(rho) h(rho) (1 - rho^2)] at rho = tanh(zeta)."""
+def _log_integrand_z(
+    zeta: np.ndarray, n: int, r: float, a: float, b: float, zeta_ref: float
+) -> np.ndarray:
+    """log[prior(rho) h(rho) (1 - rho^2)] at rho = tanh(zeta), minus its power terms at zeta_ref.
+
+    The power terms ``(m/2) log(1 - rho^2) - (m - 1/2) log(1 - rho r)`` are O(n) in
+    size; their difference from the value at ``zeta_ref`` is formed directly from
+    ``d = zeta - zeta_ref``, using ``cosh(zeta)/cosh(zeta_ref) = cosh d + rho_ref sinh d``
+    and ``rho - rho_ref = sinh d (1 - rho_ref^2) / (cosh d + rho_ref sinh d)``, so the
+    result keeps full relative precision on narrow grids at large n. The subtracted
+    constant is returned by :func:`_log_powers_at`.
+    """
+    m = n - 1
     one_minus, one_plus = _one_minus_plus_tanh(zeta)
+    one_minus_x, one_plus_x = _one_minus_plus_x(one_minus, one_plus, r)
+    ref_minus, ref_plus = _one_minus_plus_tanh(np.array([zeta_ref]))
+    ref_minus_x, _ = _one_minus_plus_x(ref_minus, ref_plus, r)
+    rho_ref = math.tanh(zeta_ref)
+    d = zeta - zeta_ref
+    sinh_d = np.sinh(d)
+    cosh_ratio_m1 = 2.0 * np.sinh(0.5 * d) ** 2 + rho_ref * sinh_d
+    rho_diff = sinh_d * (ref_minus[0] * ref_plus[0]) / (1.0 + cosh_ratio_m1)
+    powers = -m * np.log1p(cosh_ratio_m1) - (m - 0.5) * np.log1p(-r * rho_diff / ref_minus_x[0])
     return (
-        _log_stretched_beta_from_parts(one_minus, one_plus, a, b)
-        + _log_kernel_from_parts(one_minus, one_plus, n, r)
+        powers
+        + _log_kernel_remainder(one_minus_x, one_plus_x, m)
+        + _log_stretched_beta_from_parts(one_minus, one_plus, a, b)
         + np.log(one_minus)
         + np.log(one_plus)
     )
 
 
+def _log_powers_at(zeta_ref: float, n: int, r: float) -> float:
+    """``(m/2) log(1 - rho^2) - (m - 1/2) log(1 - rho r)`` at rho = tanh(zeta_ref)."""
+    m = n - 1
+    ref_minus, ref_plus = _one_minus_plus_tanh(np.array([zeta_ref]))
+    ref_minus_x, _ = _one_minus_plus_x(ref_minus, ref_plus, r)
+    log_one_minus_rho2 = math.log(ref_minus[0]) + math.log(ref_plus[0])
+    return 0.5 * m * log_one_minus_rho2 - (m - 0.5) * math.log(ref_minus_x[0])
+
+
 def _adaptive_grid(
     n: int, r: float, a: float, b: float, grid_size: int
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Uniform grid in zeta covering where the log integrand is within _LOG_DROP of its max."""
+    """Uniform grid in zeta covering where the log integrand is within _LOG_DROP of its max.
+
+    Returns the grid and the log integrand on it, offset by
+    ``-_log_powers_at(atanh(r), n, r)``.
+    """
     scale = 1.0 / math.sqrt(n - 3)
     centre = math.atanh(r)
     lo = max(centre - _INITIAL_HALF_WIDTH * scale, -_Z_LIMIT)
     hi = min(centre + _INITIAL_HALF_WIDTH * scale, _Z_LIMIT)
     for _ in range(_MAX_GRID_PASSES):
         grid = np.linspace(lo, hi, grid_size)
-        log_f = _log_integrand_z(grid, n, r, a, b)
+        log_f = _log_integrand_z(grid, n, r, a, b, centre)
         kept = np.flatnonzero(log_f >= log_f.max() - _LOG_DROP)
         first, last = int(kept[0]), int(kept[-1])
         grow_lo = first == 0 and lo > -_Z_LIMIT
@@ -531,9 +573,7 @@ class ExactPosterior:
 
     def _log_rho_density_at_z(self, zeta: float) -> float:
         one_minus, one_plus = _one_minus_plus_tanh(np.array([zeta]))
-        return float(
-            self._log_z_density_spline(zeta) - np.log(one_minus[0]) - np.log(one_plus[0])
-        )
+        return float(self._log_z_density_spline(zeta) - np.log(one_minus[0]) - np.log(one_plus[0]))
 
     # ------------------------------------------------------------------ summaries
 
@@ -720,9 +760,7 @@ class ExactPosterior:
         ok = (np.abs(flat) < 1.0) & (zeta >= self.z[0]) & (zeta <= self.z[-1])
         if np.any(ok):
             xs = flat[ok]
-            out[ok] = np.exp(
-                self._log_z_density_spline(zeta[ok]) - np.log1p(-xs) - np.log1p(xs)
-            )
+            out[ok] = np.exp(self._log_z_density_spline(zeta[ok]) - np.log1p(-xs) - np.log1p(xs))
         out[np.isnan(flat)] = np.nan
         return _as_output(out.reshape(values.shape), values.ndim == 0)
 
@@ -778,11 +816,12 @@ def exact_posterior(
     step = float(zeta[1] - zeta[0])
     peak = float(log_f.max())
     scaled = np.exp(log_f - peak)
-    log_norm = peak + math.log(step * (float(np.sum(scaled)) - 0.5 * (scaled[0] + scaled[-1])))
+    log_norm_rel = peak + math.log(step * (float(np.sum(scaled)) - 0.5 * (scaled[0] + scaled[-1])))
+    log_norm = log_norm_rel + _log_powers_at(math.atanh(r), n, r)
     log_h0 = float(_log_kernel_from_parts(np.ones(1), np.ones(1), n, r)[0])
 
     one_minus, one_plus = _one_minus_plus_tanh(zeta)
-    log_z_density = log_f - log_norm
+    log_z_density = log_f - log_norm_rel
     log_density = log_z_density - np.log(one_minus) - np.log(one_plus)
     arrays = {
         "z": zeta,

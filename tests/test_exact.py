@@ -21,7 +21,9 @@ for any n; 1 - rho*r is formed in exact rational arithmetic.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from fractions import Fraction
+from typing import Any
 
 import numpy as np
 import pytest
@@ -75,9 +77,7 @@ def stretched_beta_pdf_scipy(rho: float, a: float, b: float) -> float:
     return float(stats.beta(a, b, loc=-1.0, scale=2.0).pdf(rho))
 
 
-def posterior_moments_by_quad(
-    n: int, r: float, a: float, b: float
-) -> tuple[float, float, float]:
+def posterior_moments_by_quad(n: int, r: float, a: float, b: float) -> tuple[float, float, float]:
     """(log BF10, mean, sd) by nested scipy quad of prior * h (integral form) over rho.
 
     BF10 = integral prior(rho) h(rho) drho / h(0) (Jeffreys 1961 ch. 5; Dickey 1971).
@@ -181,8 +181,8 @@ def full_log_marginal(data: np.ndarray, rho: float) -> float:
     log_one_minus = math.log(one_minus)
     tx, ty = 0.5 * math.log(sxx / n), 0.5 * math.log(syy / n)
 
-    def log_integrand(t2: np.ndarray | float, t1: np.ndarray | float) -> np.ndarray | float:
-        e1, e2 = np.exp(-t1), np.exp(-t2)
+    def log_integrand(t2: Any, t1: Any, exp: Callable[[Any], Any] = np.exp) -> Any:
+        e1, e2 = exp(-t1), exp(-t2)
         quad_form = (sxx * e1 * e1 - 2.0 * rho * sxy * e1 * e2 + syy * e2 * e2) / one_minus
         log_det = 2.0 * t1 + 2.0 * t2 + log_one_minus
         log_lik = -n * math.log(2.0 * math.pi) - 0.5 * n * log_det - 0.5 * quad_form
@@ -194,11 +194,9 @@ def full_log_marginal(data: np.ndarray, rho: float) -> float:
     ref = float(np.max(log_integrand(grid2, grid1)))
 
     def integrand(t2: float, t1: float) -> float:
-        return math.exp(float(log_integrand(t2, t1)) - ref)
+        return math.exp(log_integrand(t2, t1, math.exp) - ref)
 
-    value, _ = integrate.dblquad(
-        integrand, box[0], box[1], box[2], box[3], epsabs=0.0, epsrel=1e-10
-    )
+    value, _ = integrate.dblquad(integrand, box[0], box[1], box[2], box[3], epsabs=0.0, epsrel=1e-9)
     return math.log(value) + ref
 
 
@@ -216,8 +214,9 @@ def test_explicit_likelihood_matches_scipy_multivariate_normal() -> None:
     cov = np.array([[s1 * s1, rho * s1 * s2], [rho * s1 * s2, s2 * s2]])
     expected = float(np.sum(stats.multivariate_normal(mu, cov).logpdf(data)))
     d = data - mu
-    quad_form = np.sum((d[:, 0] / s1) ** 2 - 2 * rho * d[:, 0] * d[:, 1] / (s1 * s2)
-                       + (d[:, 1] / s2) ** 2) / (1 - rho * rho)
+    quad_form = np.sum(
+        (d[:, 0] / s1) ** 2 - 2 * rho * d[:, 0] * d[:, 1] / (s1 * s2) + (d[:, 1] / s2) ** 2
+    ) / (1 - rho * rho)
     got = -7 * math.log(2 * math.pi) - 3.5 * math.log(s1 * s1 * s2 * s2 * (1 - rho * rho))
     got -= 0.5 * quad_form
     assert got == pytest.approx(expected, rel=1e-13)
@@ -231,16 +230,23 @@ def test_mean_integration_is_the_gaussian_integral() -> None:
     xbar = data.mean(axis=0)
     at_mean = float(np.sum(stats.multivariate_normal(xbar, cov).logpdf(data)))
 
+    centred = stats.multivariate_normal(np.zeros(2), cov)
+
     def integrand(mu2: float, mu1: float) -> float:
-        value = np.sum(stats.multivariate_normal([mu1, mu2], cov).logpdf(data))
+        value = np.sum(centred.logpdf(data - np.array([mu1, mu2])))
         return math.exp(float(value) - at_mean)
 
     numeric, _ = integrate.dblquad(
-        integrand, xbar[0] - 8 * s1, xbar[0] + 8 * s1, xbar[1] - 8 * s2, xbar[1] + 8 * s2,
-        epsabs=0.0, epsrel=1e-10,
+        integrand,
+        xbar[0] - 8 * s1,
+        xbar[0] + 8 * s1,
+        xbar[1] - 8 * s2,
+        xbar[1] + 8 * s2,
+        epsabs=0.0,
+        epsrel=1e-9,
     )
     closed = 2 * math.pi * math.sqrt(np.linalg.det(cov)) / data.shape[0]
-    assert numeric == pytest.approx(closed, rel=1e-8)
+    assert numeric == pytest.approx(closed, rel=1e-7)
 
 
 @pytest.mark.parametrize(("n", "seed"), [(5, 11), (10, 12), (20, 13)])
@@ -381,8 +387,13 @@ def test_bayes_factor_decisive_for_strong_r() -> None:
 
 @pytest.mark.parametrize(
     ("n", "r", "a", "b"),
-    [(10, 0.3, 1.0, 1.0), (10, -0.5, 2.0, 2.0), (30, 0.7, 1.0, 1.0), (30, 0.2, 0.5, 0.5),
-     (30, -0.45, 3.0, 1.5)],
+    [
+        (10, 0.3, 1.0, 1.0),
+        (10, -0.5, 2.0, 2.0),
+        (30, 0.7, 1.0, 1.0),
+        (30, 0.2, 0.5, 0.5),
+        (30, -0.45, 3.0, 1.5),
+    ],
 )
 def test_bayes_factor_matches_nested_quadrature(n: int, r: float, a: float, b: float) -> None:
     """log BF10 vs nested quad of prior * h / h(0) with h in integral form, BF rel 1e-6."""
@@ -392,8 +403,13 @@ def test_bayes_factor_matches_nested_quadrature(n: int, r: float, a: float, b: f
 
 @pytest.mark.parametrize(
     ("n", "r", "a", "b"),
-    [(20, -0.2, 1.0, 1.0), (50, 0.3, 1.0, 1.0), (100, 0.45, 2.0, 2.0), (8, 0.6, 0.5, 0.5),
-     (40, 0.1, 3.0, 1.5)],
+    [
+        (20, -0.2, 1.0, 1.0),
+        (50, 0.3, 1.0, 1.0),
+        (100, 0.45, 2.0, 2.0),
+        (8, 0.6, 0.5, 0.5),
+        (40, 0.1, 3.0, 1.5),
+    ],
 )
 def test_savage_dickey_density_ratio(n: int, r: float, a: float, b: float) -> None:
     """BF10 = prior(0) / posterior(0) (Dickey 1971), with the interpolated density."""
@@ -454,8 +470,8 @@ def beta_hdi(dist: stats.rv_continuous, mass: float) -> tuple[float, float]:
 
 
 @pytest.mark.parametrize(
-    ("n", "a", "b"), [(4, 1.0, 1.0), (9, 0.5, 0.5), (25, 2.0, 5.0), (10**5, 1.0, 1.0),
-                      (10**7, 3.0, 1.0)],
+    ("n", "a", "b"),
+    [(4, 1.0, 1.0), (9, 0.5, 0.5), (25, 2.0, 5.0), (10**5, 1.0, 1.0), (10**7, 3.0, 1.0)],
 )
 def test_null_r_posterior_matches_scipy_beta(n: int, a: float, b: float) -> None:
     """mean, sd, cdf, quantiles, tails, HDI and density at r = 0 vs scipy.stats.beta."""
