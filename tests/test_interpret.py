@@ -1,0 +1,68 @@
+"""Sentences and number formats: what the reader sees is built and tested here."""
+
+from __future__ import annotations
+
+from reportgen import interpret, narrative
+from reportgen.spec import Rope, Rule
+
+
+def test_strength_words_follow_cohens_benchmarks() -> None:
+    """Cohen (1988), sec. 3.2: 0.1 small, 0.3 medium, 0.5 large."""
+    assert [interpret.strength_word(v) for v in (0.05, -0.2, 0.35, -0.75)] == [
+        "negligible", "weak", "moderate", "strong"]
+
+
+def test_probabilities_from_draws_are_never_shown_as_certain() -> None:
+    assert interpret.format_probability(1.0) == "> 0.999"
+    assert interpret.format_probability(0.0) == "< 0.001"
+    assert interpret.format_probability(0.8234) == "0.823"
+
+
+def test_negative_correlations_use_a_true_minus_sign() -> None:
+    assert interpret.format_rho(-0.456) == "\u22120.46"
+    assert interpret.format_rho(0.456) == "0.46"
+
+
+def test_rule_sentence_states_probability_requirement_and_verdict() -> None:
+    rule = Rule(name="material", statement="above", threshold=0.3, required_probability=0.9)
+    met = interpret.rule_sentence(rule, 0.95)
+    assert "ρ > 0.30" in met and "0.950" in met and "0.90" in met and met.endswith("so it is met.")
+    unsettled = interpret.rule_sentence(rule, 0.5)
+    assert "not met" in unsettled and "either way" in unsettled
+    opposite = interpret.rule_sentence(rule, 0.02)
+    assert "the other way" in opposite
+
+
+def test_rope_sentence_reads_the_decision() -> None:
+    rope = Rope(lower=-0.1, upper=0.1)
+    assert "practically zero." in interpret.rope_sentence(rope, 0.97, "practically_zero", 0.95)
+    assert "not practically zero" in interpret.rope_sentence(rope, 0.01, "not_zero", 0.95)
+    assert "do not decide" in interpret.rope_sentence(rope, 0.4, "undecided", 0.95)
+
+
+def test_pair_paragraph_mentions_dropped_rows_and_variance_share() -> None:
+    text = interpret.pair_paragraph(x_label="Heat", y_label="Yield", n=120, n_dropped=3, median=-0.62,
+                                    lower=-0.72, upper=-0.49, mass=0.95, interval_name="credible interval",
+                                    p_positive=0.0, r2_median=0.384)
+    assert "120 complete pairs" in text and "3 rows with a missing value" in text
+    assert "strong negative" in text and "about 38%" in text
+
+
+def test_zero_straddling_interval_is_read_as_inconclusive() -> None:
+    text = interpret.pair_paragraph(x_label="A", y_label="B", n=30, n_dropped=0, median=0.1, lower=-0.2,
+                                    upper=0.4, mass=0.9, interval_name="credible interval",
+                                    p_positive=0.7, r2_median=0.02)
+    assert "includes zero" in text and "missing" not in text
+
+
+def test_banner_names_failed_pairs() -> None:
+    assert narrative.status_banner(3, [], [])["level"] == "pass"
+    failed = narrative.status_banner(3, ["A and B"], [])
+    assert failed["level"] == "fail" and "A and B" in failed["text"] and "1 of 3" in failed["text"]
+
+
+def test_every_report_carries_the_standard_cautions() -> None:
+    titles = " ".join(c["title"] for c in narrative.cautions()).lower()
+    for phrase in ("causation", "straight-line", "bivariate normal", "outliers", "client's choice",
+                   "qualified review"):
+        assert phrase in titles
