@@ -144,8 +144,9 @@ def check_command(spec_path: Path) -> None:
     from reportgen.runner import prepare
 
     prepared = prepare(_load(spec_path))
+    encoding = f", read as {prepared.table.encoding}" if prepared.table.encoding else ""
     click.echo(f"{spec_path}: spec and data are valid; {len(prepared.pairs)} pair(s) "
-               f"from {prepared.table.n_rows:,} rows of {prepared.table.path.name}")
+               f"from {prepared.table.n_rows:,} rows of {prepared.table.path.name}{encoding}")
     for pair in prepared.pairs:
         dropped = f", {pair.n_dropped} dropped for missing values" if pair.n_dropped else ""
         click.echo(f"  {pair.pair.key}: n = {pair.stats.n}{dropped}")

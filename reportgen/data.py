@@ -7,6 +7,7 @@ number of rows. The complete rows are kept only for the scatter plot.
 
 from __future__ import annotations
 
+import csv
 import difflib
 import hashlib
 from dataclasses import dataclass
@@ -19,7 +20,9 @@ from reportgen.errors import DataError
 from reportgen.spec import PairSpec, Spec
 
 MIN_COMPLETE_ROWS = 4
-CSV_ENCODINGS = ("utf-8", "utf-8-sig", "cp1252", "latin-1")
+CSV_ENCODINGS = ("utf-8", "cp1252", "latin-1")
+CSV_DELIMITERS = (",", ";", "\t", "|")
+DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "bar"}
 EXCEL_SUFFIXES = {".xlsx", ".xlsm", ".xls"}
 PARQUET_SUFFIXES = {".parquet", ".pq"}
 
@@ -106,20 +109,52 @@ def _detect_format(path: Path, declared: str) -> str:
     return "csv"
 
 
-def _read_csv(path: Path) -> tuple[pd.DataFrame, str]:
+def _sniff_text(path: Path) -> tuple[str, str]:
+    """The encoding that decodes the file's start, and that start as text."""
+    head = path.read_bytes()[:65536]
     for encoding in CSV_ENCODINGS:
         try:
-            frame = pd.read_csv(path, encoding=encoding, dtype=str, keep_default_na=False)
+            return encoding, head.decode(encoding)
         except UnicodeDecodeError:
-            continue
-        except pd.errors.EmptyDataError:
-            raise DataError(f"{path}: the file is empty; it needs a header row and data rows") from None
-        except pd.errors.ParserError as exc:
-            raise DataError(f"{path}: not a readable CSV table ({exc}); "
-                            "check the delimiter is a comma") from None
-        return frame, encoding
+            # a multi-byte character cut at the 64 KiB boundary is not a wrong encoding
+            try:
+                return encoding, head[:-3].decode(encoding)
+            except UnicodeDecodeError:
+                continue
     raise DataError(f"{path}: could not decode the text (tried {', '.join(CSV_ENCODINGS)}); "
                     "re-save the file as UTF-8")
+
+
+def _delimiter(header: str) -> str:
+    """Comma unless the header line clearly uses another common delimiter."""
+    counts = {d: header.count(d) for d in CSV_DELIMITERS}
+    best = max(counts, key=lambda d: counts[d])
+    return best if counts[best] > 0 else ","
+
+
+def _read_csv(path: Path) -> tuple[pd.DataFrame, str]:
+    encoding, text = _sniff_text(path)
+    if not text.strip():
+        raise DataError(f"{path}: the file is empty; it needs a header row and data rows")
+    header_line = text.lstrip("\ufeff").splitlines()[0]
+    delimiter = _delimiter(header_line)
+    header = next(csv.reader([header_line], delimiter=delimiter))
+    names = [name.strip() for name in header]
+    repeated = sorted({name for name in names if names.count(name) > 1})
+    if repeated:
+        raise DataError(f"{path}: the column name `{repeated[0]}` appears more than once in the header; "
+                        "rename one")
+    try:
+        frame = pd.read_csv(path, encoding=encoding, sep=delimiter, dtype=str, keep_default_na=False)
+    except UnicodeDecodeError:
+        raise DataError(f"{path}: the file mixes text encodings ({encoding} fits its start only); "
+                        "re-save it as UTF-8") from None
+    except pd.errors.ParserError as exc:
+        detail = str(exc).strip().splitlines()[-1][:120]
+        raise DataError(f"{path}: not a readable table ({detail}); check that every row has the same "
+                        f"number of {DELIMITER_NAMES[delimiter]}-separated fields") from None
+    frame.columns = [str(c).strip().lstrip("\ufeff") for c in frame.columns]
+    return frame, encoding
 
 
 def _read_excel(path: Path, sheet: str) -> pd.DataFrame:

@@ -145,7 +145,9 @@ def prior_text_rho(a: float, b: float) -> str:
     return f"(\u03c1 + 1)/2 ~ Beta({a:g}, {b:g})"
 
 
-def prior_text_means(units: str, location: float, scale: float) -> str:
+def prior_text_means(units: str, location: float, scale: float, family: str = "normal") -> str:
+    if family == "flat":
+        return "p(\u03bc\u2c7c) \u221d 1 (flat, improper)"
     if units == "scaled":
         return f"\u03bc\u2c7c ~ Normal(sample mean, {scale:g} \u00d7 sample SD)"
     return f"\u03bc\u2c7c ~ Normal({location:g}, {scale:g}) in the data's units"
@@ -153,6 +155,8 @@ def prior_text_means(units: str, location: float, scale: float) -> str:
 
 def prior_text_sds(family: str, units: str, scale: float, nu: float) -> str:
     scale_text = f"{scale:g} \u00d7 sample SD" if units == "scaled" else f"{scale:g}, data units"
+    if family == "jeffreys":
+        return "p(\u03c3\u2c7c) \u221d 1/\u03c3\u2c7c (Jeffreys, improper)"
     if family == "half_student_t":
         return f"\u03c3\u2c7c ~ Half-Student-t(\u03bd = {nu:g}, scale {scale_text})"
     return f"\u03c3\u2c7c ~ Half-normal(scale {scale_text})"

@@ -77,7 +77,7 @@ class Standardisation:
 class ModelInputs:
     """Everything that changes from pair to pair: fed to one compiled model."""
 
-    structure: str  # which compiled model: the SD prior family
+    structure: str  # which compiled model: the mean and SD prior families
     values: dict[str, np.ndarray]
 
 
@@ -112,7 +112,11 @@ def model_inputs(stats: SufficientStats, priors: Priors) -> ModelInputs:
     }
     if priors.sds.family == "half_student_t":
         values["sd_nu"] = np.array(priors.sds.nu)
-    return ModelInputs(structure=priors.sds.family, values=values)
+    if priors.means.family == "flat":
+        del values["mean_loc"], values["mean_scale"]
+    if priors.sds.family == "jeffreys":
+        del values["sd_scale"]
+    return ModelInputs(structure=f"{priors.means.family}+{priors.sds.family}", values=values)
 
 
 def build_model(inputs: ModelInputs) -> Any:
@@ -122,8 +126,16 @@ def build_model(inputs: ModelInputs) -> Any:
 
     with pm.Model() as model:
         data = {name: pm.Data(name, value) for name, value in inputs.values.items()}
-        mu = pm.Normal("mu_z", mu=data["mean_loc"], sigma=data["mean_scale"], shape=2)
-        if inputs.structure == "half_student_t":
+        mean_family, sd_family = inputs.structure.split("+")
+        if mean_family == "flat":
+            mu = pm.Flat("mu_z", shape=2)
+        else:
+            mu = pm.Normal("mu_z", mu=data["mean_loc"], sigma=data["mean_scale"], shape=2)
+        if sd_family == "jeffreys":
+            # p(sigma) proportional to 1/sigma is flat on log(sigma)
+            log_sigma = pm.Flat("log_sigma_z", shape=2)
+            sigma = pm.Deterministic("sigma_z", pt.exp(log_sigma))
+        elif sd_family == "half_student_t":
             sigma = pm.HalfStudentT("sigma_z", nu=data["sd_nu"], sigma=data["sd_scale"], shape=2)
         else:
             sigma = pm.HalfNormal("sigma_z", sigma=data["sd_scale"], shape=2)

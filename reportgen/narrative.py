@@ -31,7 +31,8 @@ def status_banner(total: int, failed: list[str], warned: list[str]) -> dict[str,
 def prior_lines(priors: Priors) -> list[str]:
     return [
         interpret.prior_text_rho(*priors.rho.shapes),
-        interpret.prior_text_means(priors.means.units, priors.means.location, priors.means.scale),
+        interpret.prior_text_means(priors.means.units, priors.means.location, priors.means.scale,
+                                   priors.means.family),
         interpret.prior_text_sds(priors.sds.family, priors.sds.units, priors.sds.scale, priors.sds.nu),
     ]
 

@@ -299,9 +299,11 @@ def build_context(
         "diagram": svg_data_uri(figures.model_diagram(
             rho_prior=interpret.prior_text_rho(*priors.rho.shapes),
             mean_prior=interpret.prior_text_means(priors.means.units, priors.means.location,
-                                                  priors.means.scale),
+                                                  priors.means.scale, priors.means.family),
             sd_prior=interpret.prior_text_sds(priors.sds.family, priors.sds.units, priors.sds.scale,
                                               priors.sds.nu),
+            likelihood="(x\u1d62, y\u1d62) ~ bivariate normal",
+            observed="n observed pairs (x\u1d62, y\u1d62)",
         )),
         "cautions": narrative.cautions(),
         "record_rows": narrative.record_rows(record["reproducible"]),

@@ -69,7 +69,7 @@ class RhoPrior(_Strict):
 
 
 class MeanPrior(_Strict):
-    family: Literal["normal"] = "normal"
+    family: Literal["normal", "flat"] = "normal"
     units: Literal["scaled", "data"] = "scaled"
     location: float = 0.0
     scale: Annotated[float, Field(gt=0, le=1e12)] = 10.0
@@ -85,7 +85,7 @@ class MeanPrior(_Strict):
 
 
 class SdPrior(_Strict):
-    family: Literal["half_normal", "half_student_t"] = "half_normal"
+    family: Literal["half_normal", "half_student_t", "jeffreys"] = "half_normal"
     units: Literal["scaled", "data"] = "scaled"
     scale: Annotated[float, Field(gt=0, le=1e12)] = 10.0
     nu: Annotated[float, Field(gt=0, le=1e4)] = 3.0
@@ -95,6 +95,11 @@ class Priors(_Strict):
     rho: RhoPrior = RhoPrior()
     means: MeanPrior = MeanPrior()
     sds: SdPrior = SdPrior()
+
+    @property
+    def is_reference(self) -> bool:
+        """Flat means and 1/sigma SDs: the priors of the exact marginal of rho (Jeffreys 1961)."""
+        return self.means.family == "flat" and self.sds.family == "jeffreys"
 
 
 class PriorOverrides(_Strict):
