@@ -4,6 +4,8 @@ here, in tested functions; the templates only lay them out.
 
 from __future__ import annotations
 
+import math
+
 from reportgen.spec import Rope, Rule
 
 # Cohen (1988), Statistical Power Analysis for the Behavioral Sciences, 2nd ed.,
@@ -41,13 +43,11 @@ def format_number(value: float, digits: int = 3) -> str:
     magnitude = abs(value)
     if 1e-3 <= magnitude < 1e6:
         decimals = max(0, digits - 1 - int(_floor_log10(magnitude)))
-        return f"{value:,.{decimals}f}"
-    return f"{value:.{digits - 1}e}"
+        return f"{value:,.{decimals}f}".replace("-", "\u2212")
+    return f"{value:.{digits - 1}e}".replace("-", "\u2212")
 
 
 def _floor_log10(value: float) -> int:
-    import math
-
     return math.floor(math.log10(value))
 
 
@@ -160,3 +160,58 @@ def prior_text_sds(family: str, units: str, scale: float, nu: float) -> str:
     if family == "half_student_t":
         return f"\u03c3\u2c7c ~ Half-Student-t(\u03bd = {nu:g}, scale {scale_text})"
     return f"\u03c3\u2c7c ~ Half-normal(scale {scale_text})"
+
+
+# Jeffreys (1961), Theory of Probability, 3rd ed., Appendix B: grades of evidence at
+# Bayes factors of about 3, 10, 30 and 100 (the words are ours).
+EVIDENCE_GRADES = ((3.0, "weak"), (10.0, "moderate"), (30.0, "strong"), (100.0, "very strong"))
+
+
+SUPERSCRIPT = str.maketrans("0123456789-.", "\u2070\u00b9\u00b2\u00b3\u2074\u2075\u2076\u2077\u2078\u2079\u207b\u00b7")
+
+
+def format_bayes_factor(log_bf10: float) -> str:
+    """Plain below 1000 (and above 1/1000), else a power of ten with superscript digits."""
+    log10 = log_bf10 / math.log(10.0)
+    if abs(log10) < 3:
+        return f"{math.exp(log_bf10):.3g}"
+    return "10" + f"{round(log10):d}".translate(SUPERSCRIPT)
+
+
+def signed(value: float, digits: int = 4) -> str:
+    """A signed number with a true minus sign."""
+    return f"{value:+.{digits}f}".replace("-", "\u2212")
+
+
+def evidence_sentence(log_bf10: float) -> str:
+    """Plain reading of BF10 (a correlation under the spec's prior against rho = 0)."""
+    size = abs(log_bf10)
+    favoured = "a correlation" if log_bf10 > 0 else "no correlation (\u03c1 = 0)"
+    other = "no correlation" if log_bf10 > 0 else "a correlation"
+    grade = "extreme"
+    for bound, word in EVIDENCE_GRADES:
+        if size < math.log(bound):
+            grade = word
+            break
+    factor = format_bayes_factor(size)
+    return (f"The Bayes factor is {format_bayes_factor(log_bf10)}: the data are {factor} times as likely "
+            f"under {favoured} as under {other}, {grade} evidence on Jeffreys' grades.")
+
+
+def crosscheck_sentence(*, applies: bool, reference_priors: bool, mean_gap: float, mean_allowed: float,
+                        rule_name: str | None, rule_gap: float, rule_allowed: float, within: bool) -> str:
+    if not applies:
+        return ("The exact reference is not compared here: this pair's priors on the means or SDs are "
+                "informative, so the two answers are not expected to agree.")
+    basis = ("The spec uses the reference priors, so the two should agree within Monte Carlo error"
+             if reference_priors else
+             "The spec's vague priors differ slightly from the reference priors, so the allowance adds a "
+             "quarter of the posterior SD to the Monte Carlo error")
+    parts = [f"The sampler's posterior mean of \u03c1 differs from the exact reference by {signed(mean_gap)} "
+             f"(allowed {mean_allowed:.4f})"]
+    if rule_name is not None:
+        parts.append(f"the largest gap in a rule probability is {signed(rule_gap)} for \u201c{rule_name}\u201d "
+                     f"(allowed {rule_allowed:.4f})")
+    verdict = "Both are within the allowance." if within else (
+        "This is beyond the allowance: the sampler's answer for this pair should be checked.")
+    return "; ".join(parts) + f". {basis}. {verdict}"

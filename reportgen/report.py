@@ -111,9 +111,12 @@ def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, st
         seed=result.seed,
     )
     prior_on_grid = np.interp(rho.grid, result.prior_grid, result.prior_density)
+    check = result.crosscheck
+    reference = np.interp(rho.grid, check.grid, check.density, left=0.0, right=0.0) if check.applies else None
     density = figures.rho_density(
         rho.grid, rho.density, prior=prior_on_grid, interval=(rho.lower, rho.upper),
         mass=document.summary.credible_mass, thresholds=thresholds, rope=rope,
+        reference=reference, reference_label="Exact (Jeffreys priors)",
     )
     panels = []
     for name, summary in result.parameters.items():
@@ -212,6 +215,17 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
             "mass": f"{mass:.0%}",
         },
         "status": result.status,
+        "bf10": interpret.format_bayes_factor(result.crosscheck.log_bf10),
+        "evidence_sentence": result.evidence_sentence,
+        "savage_dickey": ("not estimable (the posterior has almost no mass at \u03c1 = 0)"
+                          if not np.isfinite(result.crosscheck.savage_dickey_bf10)
+                          else interpret.format_bayes_factor(float(np.log(result.crosscheck.savage_dickey_bf10)))),
+        "exact": {
+            "applies": result.crosscheck.applies,
+            "mean": _rho(result.crosscheck.exact_mean),
+            "interval": f"{_rho(result.crosscheck.exact_lower)} to {_rho(result.crosscheck.exact_upper)}",
+            "sentence": result.crosscheck_sentence,
+        },
         "diagnostics_sentence": result.diagnostics_sentence,
         "divergences": f"{diag.divergences:,} of {diag.total_draws:,}",
         "bfmi": "n/a" if not np.isfinite(diag.bfmi_min) else f"{diag.bfmi_min:.2f}",
@@ -290,7 +304,7 @@ def build_context(
         "summary_rows": [{
             "anchor": p["anchor"], "title": p["title"], "n": p["n"], "median": p["median"],
             "interval": p["interval"], "p_positive": p["p_positive"], "rules": p["rules"],
-            "status": p["status"],
+            "status": p["status"], "bf10": p["bf10"],
         } for p in pairs],
         "forest": svg_data_uri(forest),
         "matrices": matrix_figures(results, spec),

@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
 from reportgen import interpret, summaries
+from reportgen.crosscheck import CrossCheck, cross_check
 from reportgen.data import PairData
 from reportgen.diagnostics import STATUS_ORDER, Diagnosis, diagnose
 from reportgen.fit import PARAMETERS, PairFit
@@ -68,6 +70,9 @@ class PairResult:
     prior_density: np.ndarray
     covariance: np.ndarray  # posterior-mean covariance matrix, data units
     mean_vector: tuple[float, float]
+    crosscheck: CrossCheck
+    evidence_sentence: str
+    crosscheck_sentence: str
 
     @property
     def rho(self) -> ParameterSummary:
@@ -142,6 +147,17 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
             sentence=interpret.rule_sentence(rule, probability),
         ))
     diagnosis = diagnose(fit.draws, fit.diverging, fit.energy, document.diagnostics)
+    rho_diagnostics = next(p for p in diagnosis.parameters if p.name == "rho")
+    check = cross_check(
+        rho_draws, rho_diagnostics.mcse_mean, rho_diagnostics.ess_bulk, data.stats.n, data.stats.sample_r,
+        pair.priors, document.rules, mass, {o.name: o.probability for o in outcomes},
+    )
+    largest = check.largest_rule_gap
+    if check.applies and not check.within_error:
+        reason = "the sampler and the exact reference for \u03c1 differ by more than the allowance"
+        diagnosis = dataclasses.replace(
+            diagnosis, reasons=(*diagnosis.reasons, reason),
+            status="fail" if diagnosis.status == "fail" else "warn")
     x_label, y_label = spec.display_name(pair.x), spec.display_name(pair.y)
     p_positive = float(np.mean(rho_draws > 0))
     r2_median = float(np.median(rho_draws ** 2))
@@ -182,6 +198,13 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
         prior_density=summaries.stretched_beta_pdf(prior_grid, a, b),
         covariance=_posterior_covariance(fit.draws),
         mean_vector=(float(np.mean(fit.draws["mu_x"])), float(np.mean(fit.draws["mu_y"]))),
+        crosscheck=check,
+        evidence_sentence=interpret.evidence_sentence(check.log_bf10),
+        crosscheck_sentence=interpret.crosscheck_sentence(
+            applies=check.applies, reference_priors=check.reference_priors, mean_gap=check.mean_gap,
+            mean_allowed=check.mean_allowed, rule_name=largest.name if largest else None,
+            rule_gap=(largest.sampled - largest.exact) if largest else 0.0,
+            rule_allowed=largest.allowed if largest else 0.0, within=check.within_error),
     )
 
 
@@ -197,6 +220,7 @@ def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
     interval_text = f"{results.interval_kind} {results.credible_mass:g}"
     header = [*CSV_COLUMNS, "p_positive", "p_rope", "rope_decision", "interval",
               "fisher_lower", "fisher_upper", "p_value", "seed", "status_reasons",
+              "exact_mean", "exact_sd", "exact_mean_gap", "log_bf10", "savage_dickey_bf10",
               *[f"p_{name}" for name in rule_names]]
     rows: list[list[object]] = []
     for pair in results.pairs:
@@ -209,6 +233,8 @@ def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
             pair.status, repr(pair.p_positive), repr(pair.rope_probability), pair.rope_decision,
             interval_text, repr(pair.reference.ci_lower), repr(pair.reference.ci_upper),
             repr(pair.reference.p_value), pair.seed, "; ".join(d.reasons),
+            repr(pair.crosscheck.exact_mean), repr(pair.crosscheck.exact_sd), repr(pair.crosscheck.mean_gap),
+            repr(pair.crosscheck.log_bf10), repr(pair.crosscheck.savage_dickey_bf10),
             *[repr(rule.probability) for rule in pair.rules],
         ])
     return header, rows
