@@ -86,15 +86,16 @@ def _progress_printer() -> Callable[[str, int, int], None] | None:
     return update
 
 
-def _load(spec_path: Path, **overrides: int | None) -> Any:
-    from reportgen.spec import load_spec, with_sampler_overrides
+def _load(spec_path: Path, engine: str | None = None, **overrides: int | None) -> Any:
+    from reportgen.spec import load_spec, with_engine, with_sampler_overrides
 
-    return with_sampler_overrides(load_spec(spec_path), **overrides)
+    return with_engine(with_sampler_overrides(load_spec(spec_path), **overrides), engine)
 
 
 def _report_outcome(outcome: Any) -> None:
     results = outcome.results
-    click.echo(f"wrote {outcome.out_dir}/report.html, report.pdf, results.csv, record.json, draws/")
+    draws = ", draws/" if any(p.engine == "mcmc" for p in results.pairs) else ""
+    click.echo(f"wrote {outcome.out_dir}/report.html, report.pdf, results.csv, record.json{draws}")
     for pair in results.pairs:
         click.echo(f"  {pair.status:4}  {pair.key}: median rho {pair.rho.median:+.3f} "
                    f"[{pair.rho.lower:+.3f}, {pair.rho.upper:+.3f}], n = {pair.n}")
@@ -103,10 +104,10 @@ def _report_outcome(outcome: Any) -> None:
         click.echo(f"reportgen: {len(results.failed)} pair(s) failed the convergence checks: {names}", err=True)
 
 
-def _run(spec_path: Path, out: Path, **overrides: int | None) -> None:
+def _run(spec_path: Path, out: Path, engine: str | None, **overrides: int | None) -> None:
     from reportgen.runner import run
 
-    spec = _load(spec_path, **overrides)
+    spec = _load(spec_path, engine, **overrides)
     outcome = run(spec, out, command_line=sys.argv, progress=_progress_printer())
     _report_outcome(outcome)
     sys.exit(outcome.exit_code)
@@ -117,6 +118,8 @@ sampler_options = [
     click.option("--draws", type=int, default=None, help="Override sampler.draws (kept draws per chain)."),
     click.option("--tune", type=int, default=None, help="Override sampler.tune (tuning draws per chain)."),
     click.option("--chains", type=int, default=None, help="Override sampler.chains."),
+    click.option("--engine", type=click.Choice(["mcmc", "exact"]), default=None,
+                 help="Override the spec's engine: mcmc (sampler) or exact (quadrature, rho only)."),
 ]
 
 
@@ -131,9 +134,9 @@ def with_sampler_options(func: F) -> F:
 @click.option("--out", "out", type=click.Path(path_type=Path), required=True, help="Output folder.")
 @with_sampler_options
 @user_errors
-def run_command(spec_path: Path, out: Path, **overrides: int | None) -> None:
+def run_command(spec_path: Path, out: Path, engine: str | None, **overrides: int | None) -> None:
     """Fit every pair of SPEC and write the report, results and record to --out."""
-    _run(spec_path, out, **overrides)
+    _run(spec_path, out, engine, **overrides)
 
 
 @main.command("check")
@@ -157,9 +160,9 @@ def check_command(spec_path: Path) -> None:
               show_default=True, help="Output folder.")
 @with_sampler_options
 @user_errors
-def demo_command(out: Path, **overrides: int | None) -> None:
+def demo_command(out: Path, engine: str | None, **overrides: int | None) -> None:
     """Run the bundled demo (an invented river-monitoring survey)."""
-    _run(DEMO_SPEC, out, **overrides)
+    _run(DEMO_SPEC, out, engine, **overrides)
 
 
 @main.command("init")

@@ -151,3 +151,14 @@ def posterior_probability_shift(posterior: exact.ExactPosterior, rule: Rule, shi
             moved.append(float(posterior.prob_between(bounds[0] - sign * shift, bounds[1] - sign * shift)))
     base = exact_rule_probability(posterior, rule)
     return max(abs(m - base) for m in moved)
+
+
+def exact_only_check(posterior: exact.ExactPosterior, mass: float) -> CrossCheck:
+    """The exact engine's own numbers in the cross-check's shape (nothing to compare)."""
+    tail = (1 - mass) / 2
+    return CrossCheck(
+        applies=False, reference_priors=True, exact_mean=float(posterior.mean), exact_sd=float(posterior.sd),
+        exact_lower=float(posterior.quantile(tail)), exact_upper=float(posterior.quantile(1 - tail)),
+        mean_gap=0.0, mean_allowed=0.0, rule_gaps=(), log_bf10=float(posterior.log_bf10),
+        savage_dickey_bf10=float("nan"), grid=np.asarray(posterior.rho), density=np.asarray(posterior.density),
+    )

@@ -38,15 +38,19 @@ class Diagnosis:
 
     @property
     def rhat_max(self) -> float:
-        return max(p.rhat for p in self.parameters)
+        return max((p.rhat for p in self.parameters), default=float("nan"))
 
     @property
     def ess_bulk_min(self) -> float:
-        return min(p.ess_bulk for p in self.parameters)
+        return min((p.ess_bulk for p in self.parameters), default=float("nan"))
 
     @property
     def ess_tail_min(self) -> float:
-        return min(p.ess_tail for p in self.parameters)
+        return min((p.ess_tail for p in self.parameters), default=float("nan"))
+
+
+NOT_SAMPLED = Diagnosis(parameters=(), divergences=0, total_draws=0, bfmi_min=float("nan"), status="pass",
+                        reasons=())
 
 
 def _nan_to(value: float, fallback: float) -> float:

@@ -215,3 +215,9 @@ def crosscheck_sentence(*, applies: bool, reference_priors: bool, mean_gap: floa
     verdict = "Both are within the allowance." if within else (
         "This is beyond the allowance: the sampler's answer for this pair should be checked.")
     return "; ".join(parts) + f". {basis}. {verdict}"
+
+
+def exact_engine_sentence() -> str:
+    return ("These numbers come from the exact engine: the marginal posterior of \u03c1 under Jeffreys' "
+            "priors for the means and SDs, computed by quadrature with no sampling, so they carry no Monte "
+            "Carlo error. Only \u03c1 has a posterior here; the ellipses use the sample means and SDs.")

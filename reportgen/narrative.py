@@ -76,6 +76,7 @@ def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
                else "they are equal-tailed, cutting off equal probability in each tail.")
         ),
         "n_pairs": len(results.pairs),
+        "engine": document.engine,
     }
 
 
@@ -137,9 +138,9 @@ def record_pair_rows(reproducible: dict[str, Any]) -> list[dict[str, str]]:
         "rows_used": f"{row['rows_used']:,}",
         "rows_dropped": f"{row['rows_dropped']:,}",
         "seed": str(row["seed"]),
-        "rhat_max": f"{row['rhat_max']:.3f}",
-        "ess_bulk_min": f"{row['ess_bulk_min']:,.0f}",
-        "ess_tail_min": f"{row['ess_tail_min']:,.0f}",
+        "rhat_max": "\u2014" if row["rhat_max"] is None else f"{row['rhat_max']:.3f}",
+        "ess_bulk_min": "\u2014" if row["ess_bulk_min"] is None else f"{row['ess_bulk_min']:,.0f}",
+        "ess_tail_min": "\u2014" if row["ess_tail_min"] is None else f"{row['ess_tail_min']:,.0f}",
         "status": row["status"],
-        "draws_sha256": row["draws_sha256"][:16],
+        "draws_sha256": "\u2014" if row["draws_sha256"] is None else row["draws_sha256"][:16] + "\u2026",
     } for row in reproducible["pairs"]]

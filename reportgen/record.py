@@ -69,6 +69,16 @@ def draws_sha256(fit: PairFit) -> str:
     return digest.hexdigest()
 
 
+ENGINE_TEXT = {
+    "mcmc": "mcmc (NUTS via nutpie; the model is compiled once per prior structure)",
+    "exact": "exact (marginal posterior of rho under Jeffreys' priors, by quadrature; no sampling)",
+}
+
+
+def _finite(value: float, digits: int) -> float | None:
+    return round(value, digits) if np.isfinite(value) else None
+
+
 @dataclass
 class RunClock:
     started: dt.datetime = field(default_factory=lambda: dt.datetime.now(dt.UTC))
@@ -88,7 +98,7 @@ def build_record(
     document = spec.document
     pairs = []
     for pair in results.pairs:
-        fit = fits[pair.key]
+        fit = fits.get(pair.key)
         d = pair.diagnosis
         pairs.append({
             "pair": pair.key,
@@ -97,14 +107,16 @@ def build_record(
             "rows_used": pair.n,
             "rows_dropped": pair.n_dropped,
             "seed": pair.seed,
-            "draws_sha256": draws_sha256(fit),
+            "draws_sha256": draws_sha256(fit) if fit else None,
             "status": d.status,
             "status_reasons": list(d.reasons),
-            "rhat_max": round(d.rhat_max, 6),
-            "ess_bulk_min": round(d.ess_bulk_min, 3),
-            "ess_tail_min": round(d.ess_tail_min, 3),
+            "rhat_max": _finite(d.rhat_max, 6),
+            "ess_bulk_min": _finite(d.ess_bulk_min, 3),
+            "ess_tail_min": _finite(d.ess_tail_min, 3),
             "divergences": d.divergences,
-            "bfmi_min": round(d.bfmi_min, 6),
+            "bfmi_min": _finite(d.bfmi_min, 6),
+            "engine": pair.engine,
+            "log_bf10": round(pair.crosscheck.log_bf10, 9),
         })
     finished = dt.datetime.now(dt.UTC)
     return {
@@ -118,7 +130,7 @@ def build_record(
             "data_sha256": table.sha256,
             "data_rows": table.n_rows,
             "data_encoding": table.encoding or None,
-            "engine": "mcmc (NUTS, nutpie; model compiled once per prior structure)",
+            "engine": ENGINE_TEXT[document.engine],
             "sampler": document.sampler.model_dump(mode="json") | {"cores": cores},
             "master_seed": document.sampler.seed,
             "seed_derivation": "numpy SeedSequence(master_seed, spawn_key = SHA-256 of 'x\\x1fy')",

@@ -112,7 +112,8 @@ def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, st
     )
     prior_on_grid = np.interp(rho.grid, result.prior_grid, result.prior_density)
     check = result.crosscheck
-    reference = np.interp(rho.grid, check.grid, check.density, left=0.0, right=0.0) if check.applies else None
+    overlay = check.applies and result.engine == "mcmc"
+    reference = np.interp(rho.grid, check.grid, check.density, left=0.0, right=0.0) if overlay else None
     density = figures.rho_density(
         rho.grid, rho.density, prior=prior_on_grid, interval=(rho.lower, rho.upper),
         mass=document.summary.credible_mass, thresholds=thresholds, rope=rope,
@@ -129,7 +130,7 @@ def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, st
     return {
         "scatter": svg_data_uri(scatter),
         "rho_density": svg_data_uri(density),
-        "parameters": svg_data_uri(figures.parameter_densities(panels)),
+        "parameters": svg_data_uri(figures.parameter_densities(panels)) if len(panels) > 1 else "",
     }
 
 
@@ -168,7 +169,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         symbol, meaning = PARAMETER_TITLES[name]
         unit = {"mu_x": result.x_unit, "sigma_x": result.x_unit,
                 "mu_y": result.y_unit, "sigma_y": result.y_unit}.get(name, "")
-        d = diagnostics[name]
+        d = diagnostics.get(name)
         rows.append({
             "symbol": symbol,
             "meaning": meaning.format(x=result.x_label, y=result.y_label),
@@ -177,10 +178,10 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
             "sd": _fmt(summary.sd, 3),
             "median": _fmt(summary.median, 4),
             "interval": f"{_fmt(summary.lower, 4)} to {_fmt(summary.upper, 4)}",
-            "rhat": f"{d.rhat:.3f}",
-            "ess_bulk": f"{d.ess_bulk:,.0f}",
-            "ess_tail": f"{d.ess_tail:,.0f}",
-            "mcse_mean": _fmt(d.mcse_mean, 2),
+            "rhat": f"{d.rhat:.3f}" if d else "\u2014",
+            "ess_bulk": f"{d.ess_bulk:,.0f}" if d else "\u2014",
+            "ess_tail": f"{d.ess_tail:,.0f}" if d else "\u2014",
+            "mcse_mean": _fmt(d.mcse_mean, 2) if d else "0 (exact)",
         })
     ref = result.reference
     diag = result.diagnosis
@@ -188,6 +189,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "anchor": _anchor(result.key),
         "title": result.title,
         "key": result.key,
+        "engine": result.engine,
         "x_label": result.x_label,
         "y_label": result.y_label,
         "n": f"{result.n:,}",

@@ -3,14 +3,15 @@
 from __future__ import annotations
 
 import dataclasses
+import time
 from dataclasses import dataclass
 
 import numpy as np
 
-from reportgen import interpret, summaries
-from reportgen.crosscheck import CrossCheck, cross_check
+from reportgen import exact, interpret, summaries
+from reportgen.crosscheck import CrossCheck, cross_check, exact_only_check, exact_rule_probability
 from reportgen.data import PairData
-from reportgen.diagnostics import STATUS_ORDER, Diagnosis, diagnose
+from reportgen.diagnostics import NOT_SAMPLED, STATUS_ORDER, Diagnosis, diagnose
 from reportgen.fit import PARAMETERS, PairFit
 from reportgen.spec import Spec
 
@@ -73,6 +74,7 @@ class PairResult:
     crosscheck: CrossCheck
     evidence_sentence: str
     crosscheck_sentence: str
+    engine: str  # "mcmc" or "exact"
 
     @property
     def rho(self) -> ParameterSummary:
@@ -124,87 +126,134 @@ def _posterior_covariance(draws: dict[str, np.ndarray]) -> np.ndarray:
     return np.array([[sx * sx, rho * sx * sy], [rho * sx * sy, sy * sy]])
 
 
+def _rule_outcomes(spec: Spec, probabilities: dict[str, float]) -> tuple[RuleOutcome, ...]:
+    return tuple(RuleOutcome(
+        name=rule.name,
+        statement=interpret.rule_statement(rule),
+        probability=probabilities[rule.name],
+        required=rule.required_probability,
+        verdict=interpret.rule_verdict(probabilities[rule.name], rule.required_probability),
+        sentence=interpret.rule_sentence(rule, probabilities[rule.name]),
+    ) for rule in spec.document.rules)
+
+
 def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
+    """The result of one pair from the sampler's draws."""
     document = spec.document
     mass = document.summary.credible_mass
     kind = document.summary.interval
-    pair = data.pair
     parameters = {name: summarise_parameter(name, fit.draws[name], mass, kind) for name in PARAMETERS}
     rho_draws = np.ravel(fit.draws["rho"])
-    rho = parameters["rho"]
-    hdi = summaries.hdi_interval(rho_draws, mass)
-    rope_probability = summaries.rope_probability(rho_draws, document.rope)
-    rope_decision = summaries.rope_decision(hdi, document.rope)
-    outcomes = []
-    for rule in document.rules:
-        probability = summaries.rule_probability(rho_draws, rule)
-        outcomes.append(RuleOutcome(
-            name=rule.name,
-            statement=interpret.rule_statement(rule),
-            probability=probability,
-            required=rule.required_probability,
-            verdict=interpret.rule_verdict(probability, rule.required_probability),
-            sentence=interpret.rule_sentence(rule, probability),
-        ))
+    probabilities = {rule.name: summaries.rule_probability(rho_draws, rule) for rule in document.rules}
     diagnosis = diagnose(fit.draws, fit.diverging, fit.energy, document.diagnostics)
     rho_diagnostics = next(p for p in diagnosis.parameters if p.name == "rho")
     check = cross_check(
         rho_draws, rho_diagnostics.mcse_mean, rho_diagnostics.ess_bulk, data.stats.n, data.stats.sample_r,
-        pair.priors, document.rules, mass, {o.name: o.probability for o in outcomes},
+        data.pair.priors, document.rules, mass, probabilities,
     )
-    largest = check.largest_rule_gap
     if check.applies and not check.within_error:
         reason = "the sampler and the exact reference for \u03c1 differ by more than the allowance"
         diagnosis = dataclasses.replace(
             diagnosis, reasons=(*diagnosis.reasons, reason),
             status="fail" if diagnosis.status == "fail" else "warn")
+    return _assemble(
+        spec, data, engine="mcmc", parameters=parameters,
+        hdi=summaries.hdi_interval(rho_draws, mass),
+        p_positive=float(np.mean(rho_draws > 0)),
+        r2_median=float(np.median(rho_draws ** 2)),
+        rope_probability=summaries.rope_probability(rho_draws, document.rope),
+        rules=_rule_outcomes(spec, probabilities), diagnosis=diagnosis, check=check,
+        seed=fit.seed, seconds=fit.seconds,
+        covariance=_posterior_covariance(fit.draws),
+        mean_vector=(float(np.mean(fit.draws["mu_x"])), float(np.mean(fit.draws["mu_y"]))),
+    )
+
+
+def pair_result_exact(spec: Spec, data: PairData) -> PairResult:
+    """The result of one pair from the exact marginal posterior of rho (no sampler).
+
+    Under Jeffreys' priors for the means and SDs; only rho has a posterior here, and the
+    scatter plot's ellipses use the sample means and SDs with the posterior mean of rho.
+    """
+    started = time.perf_counter()
+    document = spec.document
+    mass = document.summary.credible_mass
+    a, b = data.pair.priors.rho.shapes
+    r = float(np.clip(data.stats.sample_r, -0.999999, 0.999999))
+    posterior = exact.exact_posterior(data.stats.n, r, a, b)
+    tail = (1.0 - mass) / 2.0
+    hdi = tuple(float(v) for v in posterior.hdi(mass))
+    lower, upper = hdi if document.summary.interval == "hdi" else (
+        float(posterior.quantile(tail)), float(posterior.quantile(1.0 - tail)))
+    rho = ParameterSummary(
+        name="rho", mean=float(posterior.mean), sd=float(posterior.sd), median=float(posterior.median),
+        lower=lower, upper=upper, grid=np.asarray(posterior.rho), density=np.asarray(posterior.density))
+    probabilities = {rule.name: exact_rule_probability(posterior, rule) for rule in document.rules}
+    check = exact_only_check(posterior, mass)
+    # median of rho^2: P(rho^2 <= t) = cdf(sqrt t) - cdf(-sqrt t), solved by bisection
+    low, high = 0.0, 1.0
+    for _ in range(60):
+        mid = 0.5 * (low + high)
+        share = float(posterior.cdf(np.sqrt(mid))) - float(posterior.cdf(-np.sqrt(mid)))
+        low, high = (mid, high) if share < 0.5 else (low, mid)
+    sx, sy = data.stats.sd_x, data.stats.sd_y
+    covariance = np.array([[sx * sx, rho.mean * sx * sy], [rho.mean * sx * sy, sy * sy]])
+    return _assemble(
+        spec, data, engine="exact", parameters={"rho": rho}, hdi=(hdi[0], hdi[1]),
+        p_positive=float(posterior.prob_above(0.0)), r2_median=0.5 * (low + high),
+        rope_probability=float(posterior.prob_between(document.rope.lower, document.rope.upper)),
+        rules=_rule_outcomes(spec, probabilities), diagnosis=NOT_SAMPLED, check=check, seed=0,
+        seconds=time.perf_counter() - started, covariance=covariance,
+        mean_vector=(data.stats.mean_x, data.stats.mean_y),
+    )
+
+
+def _assemble(
+    spec: Spec, data: PairData, *, engine: str, parameters: dict[str, ParameterSummary],
+    hdi: tuple[float, float], p_positive: float, r2_median: float, rope_probability: float,
+    rules: tuple[RuleOutcome, ...], diagnosis: Diagnosis, check: CrossCheck, seed: int, seconds: float,
+    covariance: np.ndarray, mean_vector: tuple[float, float],
+) -> PairResult:
+    document = spec.document
+    mass = document.summary.credible_mass
+    pair = data.pair
+    rho = parameters["rho"]
+    rope_decision = summaries.rope_decision(hdi, document.rope)
     x_label, y_label = spec.display_name(pair.x), spec.display_name(pair.y)
-    p_positive = float(np.mean(rho_draws > 0))
-    r2_median = float(np.median(rho_draws ** 2))
-    interval_name = "highest-density interval" if kind == "hdi" else "credible interval"
+    interval_name = "highest-density interval" if document.summary.interval == "hdi" else "credible interval"
     a, b = pair.priors.rho.shapes
     prior_grid = np.linspace(-1.0, 1.0, 401)
+    largest = check.largest_rule_gap
+    if engine == "exact":
+        check_sentence = interpret.exact_engine_sentence()
+        diagnostics_sentence = "No sampler was run: the exact engine computes the posterior by quadrature."
+    else:
+        check_sentence = interpret.crosscheck_sentence(
+            applies=check.applies, reference_priors=check.reference_priors, mean_gap=check.mean_gap,
+            mean_allowed=check.mean_allowed, rule_name=largest.name if largest else None,
+            rule_gap=(largest.sampled - largest.exact) if largest else 0.0,
+            rule_allowed=largest.allowed if largest else 0.0, within=check.within_error)
+        diagnostics_sentence = interpret.diagnostics_sentence(diagnosis.status, diagnosis.reasons)
     return PairResult(
-        key=pair.key,
-        x=pair.x,
-        y=pair.y,
-        title=pair.label or f"{x_label} and {y_label}",
-        x_label=x_label,
-        y_label=y_label,
-        x_unit=spec.variable(pair.x).unit,
-        y_unit=spec.variable(pair.y).unit,
-        pair_set=pair.pair_set,
-        n=data.stats.n,
-        n_dropped=data.n_dropped,
-        seed=fit.seed,
-        seconds=fit.seconds,
+        key=pair.key, x=pair.x, y=pair.y, title=pair.label or f"{x_label} and {y_label}",
+        x_label=x_label, y_label=y_label,
+        x_unit=spec.variable(pair.x).unit, y_unit=spec.variable(pair.y).unit,
+        pair_set=pair.pair_set, n=data.stats.n, n_dropped=data.n_dropped, seed=seed, seconds=seconds,
         reference=summaries.pearson_reference(data.stats.n, data.stats.sample_r, mass),
-        parameters=parameters,
-        hdi=hdi,
-        p_positive=p_positive,
-        r2_median=r2_median,
-        rope_probability=rope_probability,
-        rope_decision=rope_decision,
+        parameters=parameters, hdi=hdi, p_positive=p_positive, r2_median=r2_median,
+        rope_probability=rope_probability, rope_decision=rope_decision,
         rope_sentence=interpret.rope_sentence(document.rope, rope_probability, rope_decision, mass),
-        rules=tuple(outcomes),
-        diagnosis=diagnosis,
+        rules=rules, diagnosis=diagnosis,
         paragraph=interpret.pair_paragraph(
             x_label=x_label, y_label=y_label, n=data.stats.n, n_dropped=data.n_dropped,
             median=rho.median, lower=rho.lower, upper=rho.upper, mass=mass,
             interval_name=interval_name, p_positive=p_positive, r2_median=r2_median,
         ),
-        diagnostics_sentence=interpret.diagnostics_sentence(diagnosis.status, diagnosis.reasons),
-        prior_grid=prior_grid,
-        prior_density=summaries.stretched_beta_pdf(prior_grid, a, b),
-        covariance=_posterior_covariance(fit.draws),
-        mean_vector=(float(np.mean(fit.draws["mu_x"])), float(np.mean(fit.draws["mu_y"]))),
-        crosscheck=check,
+        diagnostics_sentence=diagnostics_sentence,
+        prior_grid=prior_grid, prior_density=summaries.stretched_beta_pdf(prior_grid, a, b),
+        covariance=covariance, mean_vector=mean_vector, crosscheck=check,
         evidence_sentence=interpret.evidence_sentence(check.log_bf10),
-        crosscheck_sentence=interpret.crosscheck_sentence(
-            applies=check.applies, reference_priors=check.reference_priors, mean_gap=check.mean_gap,
-            mean_allowed=check.mean_allowed, rule_name=largest.name if largest else None,
-            rule_gap=(largest.sampled - largest.exact) if largest else 0.0,
-            rule_allowed=largest.allowed if largest else 0.0, within=check.within_error),
+        crosscheck_sentence=check_sentence, engine=engine,
     )
 
 
@@ -220,7 +269,7 @@ def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
     interval_text = f"{results.interval_kind} {results.credible_mass:g}"
     header = [*CSV_COLUMNS, "p_positive", "p_rope", "rope_decision", "interval",
               "fisher_lower", "fisher_upper", "p_value", "seed", "status_reasons",
-              "exact_mean", "exact_sd", "exact_mean_gap", "log_bf10", "savage_dickey_bf10",
+              "exact_mean", "exact_sd", "exact_mean_gap", "log_bf10", "savage_dickey_bf10", "engine",
               *[f"p_{name}" for name in rule_names]]
     rows: list[list[object]] = []
     for pair in results.pairs:
@@ -229,12 +278,13 @@ def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
         rows.append([
             pair.key, pair.x, pair.y, pair.n, pair.n_dropped, repr(pair.reference.r),
             repr(rho.mean), repr(rho.median), repr(rho.sd), repr(rho.lower), repr(rho.upper),
-            f"{d.rhat_max:.4f}", f"{d.ess_bulk_min:.0f}", f"{d.ess_tail_min:.0f}", d.divergences,
+            *(("", "", "") if pair.engine == "exact" else
+              (f"{d.rhat_max:.4f}", f"{d.ess_bulk_min:.0f}", f"{d.ess_tail_min:.0f}")), d.divergences,
             pair.status, repr(pair.p_positive), repr(pair.rope_probability), pair.rope_decision,
             interval_text, repr(pair.reference.ci_lower), repr(pair.reference.ci_upper),
             repr(pair.reference.p_value), pair.seed, "; ".join(d.reasons),
             repr(pair.crosscheck.exact_mean), repr(pair.crosscheck.exact_sd), repr(pair.crosscheck.mean_gap),
-            repr(pair.crosscheck.log_bf10), repr(pair.crosscheck.savage_dickey_bf10),
+            repr(pair.crosscheck.log_bf10), repr(pair.crosscheck.savage_dickey_bf10), pair.engine,
             *[repr(rule.probability) for rule in pair.rules],
         ])
     return header, rows

@@ -26,7 +26,7 @@ from reportgen.data import PairData, Table, load_pairs, load_table
 from reportgen.errors import OutputError
 from reportgen.fit import Fitter, PairFit
 from reportgen.record import RunClock, build_record
-from reportgen.results import RunResults, pair_result, results_rows, run_results
+from reportgen.results import RunResults, pair_result, pair_result_exact, results_rows, run_results
 from reportgen.spec import Spec
 
 OUTPUT_FILES = ("report.html", "report.pdf", "results.csv", "record.json")
@@ -96,9 +96,12 @@ def fit_all(
         if progress:
             progress(pair.pair.key, index, total)
         started = time.perf_counter()
-        fit = fitter.fit(pair, spec.document.sampler.seed)
-        fits[pair.pair.key] = fit
-        results.append(pair_result(spec, pair, fit))
+        if spec.document.engine == "exact":
+            results.append(pair_result_exact(spec, pair))
+        else:
+            fit = fitter.fit(pair, spec.document.sampler.seed)
+            fits[pair.pair.key] = fit
+            results.append(pair_result(spec, pair, fit))
         clock.pair_seconds[pair.pair.key] = time.perf_counter() - started
     if progress:
         progress("done", total, total)
@@ -175,7 +178,8 @@ def run(
         (staging / "record.json").write_text(json.dumps(record, indent=2, ensure_ascii=False) + "\n",
                                              encoding="utf-8")
         draws_dir = staging / DRAWS_FOLDER
-        draws_dir.mkdir()
+        if fits:
+            draws_dir.mkdir()
         for key, fit in fits.items():
             fit.inference_data.to_netcdf(str(draws_dir / f"{safe_file_stem(key)}.nc"), engine="h5netcdf")
         publish(staging, out_dir)

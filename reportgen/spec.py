@@ -188,6 +188,7 @@ class Diagnostics(_Strict):
 class SpecDocument(_Strict):
     """The spec exactly as written (after defaults)."""
 
+    engine: Literal["mcmc", "exact"] = "mcmc"
     report: ReportMeta
     data: DataSource
     variables: dict[str, Variable] = {}
@@ -405,6 +406,13 @@ def load_spec(path: str | Path) -> Spec:
         source_text=text,
         pairs=pairs,
     )
+
+
+def with_engine(spec: Spec, engine: str | None) -> Spec:
+    """A copy of ``spec`` using ``engine`` ("mcmc" or "exact") when one is given."""
+    if engine is None or engine == spec.document.engine:
+        return spec
+    return spec.model_copy(update={"document": spec.document.model_copy(update={"engine": engine})})
 
 
 def with_sampler_overrides(spec: Spec, **overrides: int | None) -> Spec:

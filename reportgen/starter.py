@@ -26,6 +26,8 @@ def starter_spec(data_path: str, pairs: list[tuple[str, str]], title: str = "Cor
     return f"""# reportgen spec. Every key below is shown with its default; edit what you need.
 # Unknown keys are errors, so a typo is caught rather than ignored.
 
+engine = "mcmc"      # mcmc: sample all five parameters | exact: rho only, by quadrature under Jeffreys' priors
+
 [report]
 title = {_toml_string(title)}
 subtitle = ""
@@ -59,13 +61,13 @@ family = "{rho.family}"   # uniform on [-1, 1] | beta: (rho + 1)/2 ~ Beta(a, b)
 # b = 2.0
 
 [priors.means]
-family = "{means.family}"
+family = "{means.family}"   # normal | flat (improper; with sds.family = "jeffreys": the reference priors)
 units = "{means.units}"     # scaled: Normal(sample mean, scale x sample SD) | data: Normal(location, scale)
 location = {means.location}
 scale = {means.scale}
 
 [priors.sds]
-family = "{sds.family}" # half_normal | half_student_t
+family = "{sds.family}" # half_normal | half_student_t | jeffreys (p(sigma) proportional to 1/sigma)
 units = "{sds.units}"     # scaled: scale x sample SD | data: scale in the data's units
 scale = {sds.scale}
 nu = {sds.nu}            # half_student_t only

@@ -178,3 +178,25 @@ def test_pdf_renderer_refuses_files_and_network() -> None:
     assert any("etc/passwd" in url for url in refused)
     assert any("127.0.0.1" in url for url in refused)
     assert b"root:" not in pdf
+
+
+def test_exact_engine_reports_the_quadrature_numbers(project: Path) -> None:
+    """`--engine exact`: rho's summaries are the exact marginal (Jeffreys 1961; Ly et al. 2018)
+    as computed by reportgen.exact, with no sampler and no draws folder."""
+    from reportgen.exact import exact_posterior
+
+    out = project / "exact"
+    result = invoke("run", str(project / "spec.toml"), "--out", str(out), "--engine", "exact")
+    assert result.exit_code == 0, result.output
+    assert not (out / "draws").exists()
+    rows = list(csv.DictReader((out / "results.csv").open(encoding="utf-8")))
+    for row in rows:
+        reference = exact_posterior(int(row["n"]), float(row["sample_r"]))
+        assert float(row["rho_mean"]) == pytest.approx(reference.mean, abs=1e-12)
+        assert float(row["rho_lower"]) == pytest.approx(reference.quantile(0.025), abs=1e-9)
+        assert float(row["p_positive"]) == pytest.approx(reference.prob_above(0.0), abs=1e-12)
+        assert row["engine"] == "exact" and row["rhat_max"] == ""
+    record = json.loads((out / "record.json").read_text(encoding="utf-8"))
+    assert record["reproducible"]["engine"].startswith("exact")
+    text = " ".join(page.extract_text() for page in PdfReader(str(out / "report.pdf")).pages)
+    assert "exact engine" in text
