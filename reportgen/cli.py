@@ -80,7 +80,10 @@ def _progress_printer() -> Callable[[str, int, int], None] | None:
             bar.update(task, completed=total, total=total)
             bar.stop()
             return
-        label = "compiling model, then fitting" if done == 0 else f"fitting {key}"
+        if key == "rendering the report":
+            bar.update(task, completed=total, total=total, description=key)
+            return
+        label = "compiling the model, then fitting" if done == 0 else f"fitting {key}"
         bar.update(task, completed=done, total=total, description=label[:60])
 
     return update

@@ -8,10 +8,22 @@ bug in reportgen, not in the user's input.
 from __future__ import annotations
 
 
+def one_line(text: str) -> str:
+    """``text`` with every line break or control character shown as an escape (``\\n``, ``\\x00``).
+
+    Messages quote the user's own names (keys, columns, sheets, paths), and
+    any of those can hold a newline; the message must still be one line.
+    """
+    return "".join(ch if ch.isprintable() else repr(ch)[1:-1] for ch in text)
+
+
 class ReportgenError(Exception):
     """Base class: a problem with the user's input that the user can fix."""
 
     exit_code = 2
+
+    def __init__(self, *args: object) -> None:
+        super().__init__(*(one_line(a) if isinstance(a, str) else a for a in args))
 
 
 class SpecError(ReportgenError):

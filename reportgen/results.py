@@ -169,11 +169,13 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
     )
 
 
-def pair_result_exact(spec: Spec, data: PairData) -> PairResult:
+def pair_result_exact(spec: Spec, data: PairData, sampler_failure: str = "") -> PairResult:
     """The result of one pair from the exact marginal posterior of rho (no sampler).
 
     Under Jeffreys' priors for the means and SDs; only rho has a posterior here, and the
     scatter plot's ellipses use the sample means and SDs with the posterior mean of rho.
+    With ``sampler_failure`` set, this is the fallback for a pair whose sampler failed:
+    the pair is marked "fail" with that reason, and the numbers are labelled as exact.
     """
     started = time.perf_counter()
     document = spec.document
@@ -198,11 +200,15 @@ def pair_result_exact(spec: Spec, data: PairData) -> PairResult:
         low, high = (mid, high) if share < 0.5 else (low, mid)
     sx, sy = data.stats.sd_x, data.stats.sd_y
     covariance = np.array([[sx * sx, rho.mean * sx * sy], [rho.mean * sx * sy, sy * sy]])
+    diagnosis = NOT_SAMPLED
+    if sampler_failure:
+        diagnosis = dataclasses.replace(NOT_SAMPLED, status="fail",
+                                        reasons=(f"the sampler failed ({sampler_failure})",))
     return _assemble(
         spec, data, engine="exact", parameters={"rho": rho}, hdi=(hdi[0], hdi[1]),
         p_positive=float(posterior.prob_above(0.0)), r2_median=0.5 * (low + high),
         rope_probability=float(posterior.prob_between(document.rope.lower, document.rope.upper)),
-        rules=_rule_outcomes(spec, probabilities), diagnosis=NOT_SAMPLED, check=check, seed=0,
+        rules=_rule_outcomes(spec, probabilities), diagnosis=diagnosis, check=check, seed=0,
         seconds=time.perf_counter() - started, covariance=covariance,
         mean_vector=(data.stats.mean_x, data.stats.mean_y),
     )
@@ -224,7 +230,12 @@ def _assemble(
     a, b = pair.priors.rho.shapes
     prior_grid = np.linspace(-1.0, 1.0, 401)
     largest = check.largest_rule_gap
-    if engine == "exact":
+    if engine == "exact" and diagnosis.status == "fail":
+        check_sentence = interpret.exact_engine_sentence()
+        diagnostics_sentence = (f"The sampler failed for this pair ({'; '.join(diagnosis.reasons)}); the numbers "
+                                "shown are the exact engine's fallback, under Jeffreys' priors for the means "
+                                "and SDs rather than the spec's.")
+    elif engine == "exact":
         check_sentence = interpret.exact_engine_sentence()
         diagnostics_sentence = "No sampler was run: the exact engine computes the posterior by quadrature."
     else:

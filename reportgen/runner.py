@@ -11,6 +11,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import logging
 import os
 import shutil
 import sys
@@ -29,6 +30,7 @@ from reportgen.record import RunClock, build_record
 from reportgen.results import RunResults, pair_result, pair_result_exact, results_rows, run_results
 from reportgen.spec import Spec
 
+LOGGER = logging.getLogger(__name__)
 OUTPUT_FILES = ("report.html", "report.pdf", "results.csv", "record.json")
 DRAWS_FOLDER = "draws"
 
@@ -99,14 +101,22 @@ def fit_all(
         if spec.document.engine == "exact":
             results.append(pair_result_exact(spec, pair))
         else:
-            fit = fitter.fit(pair, spec.document.sampler.seed)
-            fits[pair.pair.key] = fit
-            results.append(pair_result(spec, pair, fit))
+            try:
+                fit = fitter.fit(pair, spec.document.sampler.seed)
+            except Exception as exc:  # one pair's sampler crashing must not sink the other pairs
+                LOGGER.warning("sampler failed for %s: %s", pair.pair.key, exc)
+                results.append(pair_result_exact(spec, pair, sampler_failure=_one_line(exc)))
+            else:
+                fits[pair.pair.key] = fit
+                results.append(pair_result(spec, pair, fit))
         clock.pair_seconds[pair.pair.key] = time.perf_counter() - started
-    if progress:
-        progress("done", total, total)
     clock.compile_seconds.update(fitter.compile_seconds)
     return run_results(spec, tuple(results)), fits
+
+
+def _one_line(exc: BaseException) -> str:
+    text = " ".join(str(exc).split()) or type(exc).__name__
+    return f"{type(exc).__name__}: {text}"[:200]
 
 
 def results_csv(results: RunResults) -> str:
@@ -166,6 +176,8 @@ def run(
     record = build_record(spec, prepared.table, results, fits, clock,
                           command_line if command_line is not None else sys.argv, fitter.cores)
     pair_data = {p.pair.key: p for p in prepared.pairs}
+    if progress:
+        progress("rendering the report", len(prepared.pairs), len(prepared.pairs))
     context = report.build_context(spec, results, pair_data, record)
     user_templates = ((spec.base_dir / spec.document.report.templates).resolve()
                       if spec.document.report.templates else None)
@@ -183,4 +195,6 @@ def run(
         for key, fit in fits.items():
             fit.inference_data.to_netcdf(str(draws_dir / f"{safe_file_stem(key)}.nc"), engine="h5netcdf")
         publish(staging, out_dir)
+    if progress:
+        progress("done", len(prepared.pairs), len(prepared.pairs))
     return RunOutcome(out_dir=out_dir, results=results, refused_urls=refused)

@@ -11,11 +11,13 @@ import datetime as dt
 import difflib
 import hashlib
 import itertools
+import re
 import tomllib
+import typing
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, ValidationInfo, field_validator, model_validator
 
 from reportgen.errors import SpecError
 
@@ -24,8 +26,43 @@ MAX_DRAWS = 200_000
 MAX_CHAINS = 64
 
 
-class _Strict(BaseModel):
+CONTROL_CHARACTERS = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
+
+
+def _wants_number(annotation: Any) -> bool:
+    """Whether a field's type takes an int or a float (and not a bool)."""
+    found: set[Any] = set()
+
+    def walk(node: Any) -> None:
+        found.add(node)
+        for arg in typing.get_args(node):
+            walk(arg)
+
+    walk(annotation)
+    return bool(found & {int, float}) and bool not in found
+
+
+class _Frozen(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class _Strict(_Frozen):
+    """A table of the spec as the user writes it: no unknown keys, no nan/inf, no true/false as a number."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
+
+    @field_validator("*", mode="before")
+    @classmethod
+    def _plain_values(cls, value: Any, info: ValidationInfo) -> Any:
+        if isinstance(value, bool):
+            field = cls.model_fields.get(info.field_name or "")
+            if field is not None and _wants_number(field.annotation):
+                raise ValueError(f"should be a number, not {str(value).lower()}")
+        elif isinstance(value, str):
+            control = CONTROL_CHARACTERS.search(value)
+            if control:
+                raise ValueError(f"contains the control character U+{ord(control.group()):04X}; remove it")
+        return value
 
 
 class ReportMeta(_Strict):
@@ -45,6 +82,13 @@ class DataSource(_Strict):
     sheet: str = ""
     columns: tuple[str, ...] = ()
     missing: Literal["listwise", "fail"] = "listwise"
+
+    @model_validator(mode="after")
+    def _columns_once(self) -> DataSource:
+        repeated = sorted({c for c in self.columns if self.columns.count(c) > 1})
+        if repeated:
+            raise ValueError(f"`columns` lists `{repeated[0]}` more than once; list each column once")
+        return self
 
 
 class Variable(_Strict):
@@ -213,7 +257,7 @@ class SpecDocument(_Strict):
         return self
 
 
-class PairSpec(_Strict):
+class PairSpec(_Frozen):
     """One pair to fit, with its priors resolved."""
 
     x: str
@@ -228,7 +272,7 @@ class PairSpec(_Strict):
         return f"{self.x} vs {self.y}"
 
 
-class Spec(_Strict):
+class Spec(_Frozen):
     """The validated spec, with pairs expanded and paths resolved."""
 
     document: SpecDocument

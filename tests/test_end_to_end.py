@@ -200,3 +200,40 @@ def test_exact_engine_reports_the_quadrature_numbers(project: Path) -> None:
     assert record["reproducible"]["engine"].startswith("exact")
     text = " ".join(page.extract_text() for page in PdfReader(str(out / "report.pdf")).pages)
     assert "exact engine" in text
+
+
+def test_a_crashing_sampler_fails_one_pair_not_the_run(project: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from reportgen.fit import Fitter
+
+    original = Fitter.fit
+
+    def flaky(self: Fitter, pair: object, master_seed: int) -> object:
+        if pair.pair.key == "a vs c":  # type: ignore[attr-defined]
+            raise RuntimeError("simulated sampler crash")
+        return original(self, pair, master_seed)  # type: ignore[arg-type]
+
+    monkeypatch.setattr(Fitter, "fit", flaky)
+    out = project / "flaky"
+    result = CliRunner().invoke(main, ["run", str(project / "spec.toml"), "--out", str(out)])
+    assert result.exit_code == 1
+    rows = {row["pair"]: row for row in csv.DictReader((out / "results.csv").open(encoding="utf-8"))}
+    assert rows["a vs c"]["status"] == "fail" and "simulated sampler crash" in rows["a vs c"]["status_reasons"]
+    assert rows["a vs b"]["status"] == "pass"
+    first_page = PdfReader(str(out / "report.pdf")).pages[0].extract_text()
+    assert "did not pass" in first_page
+
+
+def test_ctrl_c_exits_130_and_changes_nothing(project: Path, finished_run: Path,
+                                             monkeypatch: pytest.MonkeyPatch) -> None:
+    from reportgen.fit import Fitter
+
+    def interrupted(self: Fitter, pair: object, master_seed: int) -> object:
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(Fitter, "fit", interrupted)
+    before = {p.name: p.read_bytes() for p in finished_run.iterdir() if p.is_file()}
+    result = CliRunner().invoke(main, ["run", str(project / "spec.toml"), "--out", str(finished_run)])
+    assert result.exit_code == 130
+    assert "interrupted" in result.output
+    assert {p.name: p.read_bytes() for p in finished_run.iterdir() if p.is_file()} == before
+    assert not list(project.glob(".*staging*"))
