@@ -312,17 +312,19 @@ def _merge_priors(base: Priors, overrides: PriorOverrides) -> Priors:
     )
 
 
-def expand_pairs(document: SpecDocument) -> tuple[PairSpec, ...]:
+def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[PairSpec, ...]:
     """Explicit pairs first, then every pair among each pair set's columns."""
     pairs: list[PairSpec] = []
     seen: dict[frozenset[str], str] = {}
+    prefix = f"{source}: " if source is not None else ""
 
     def add(x: str, y: str, label: str, overrides: PriorOverrides, where: str, pair_set: str) -> None:
         if x == y:
-            raise SpecError(f"{where}: a pair needs two different columns, got `{x}` twice")
+            raise SpecError(f"{prefix}`{where}`: a pair needs two different columns, got `{x}` as both "
+                            "x and y; change one of them")
         identity = frozenset((x, y))
         if identity in seen:
-            raise SpecError(f"{where}: the pair ({x}, {y}) is already listed at {seen[identity]}; "
+            raise SpecError(f"{prefix}`{where}`: the pair ({x}, {y}) is already listed at `{seen[identity]}`; "
                             "remove one of them")
         seen[identity] = where
         merged = _merge_priors(document.priors, overrides)
@@ -333,45 +335,77 @@ def expand_pairs(document: SpecDocument) -> tuple[PairSpec, ...]:
     for index, pair_set in enumerate(document.pair_sets):
         repeated = sorted({c for c in pair_set.columns if pair_set.columns.count(c) > 1})
         if repeated:
-            raise SpecError(f"pair_sets[{index}].columns: `{repeated[0]}` is listed twice")
+            raise SpecError(f"{prefix}`pair_sets[{index}].columns`: `{repeated[0]}` is listed more than once; "
+                            "list each column once")
         for x, y in itertools.combinations(pair_set.columns, 2):
             add(x, y, "", pair_set.priors, f"pair_sets[{index}] ({pair_set.name})", pair_set.name)
     return tuple(pairs)
 
 
-def _model_fields(model: type[BaseModel]) -> list[str]:
-    return list(model.model_fields)
+def _as_model(annotation: Any) -> type[BaseModel] | None:
+    """The spec table type inside ``annotation`` (``X``, ``X | None``, ``tuple[X, ...]``, ``dict[str, X]``)."""
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return annotation
+    for arg in typing.get_args(annotation):
+        found = _as_model(arg)
+        if found is not None:
+            return found
+    return None
+
+
+def _walk(location: tuple[Any, ...]) -> tuple[type[BaseModel] | None, Any]:
+    """The table type at ``location`` and the field that leads to it (None where the path leaves the schema).
+
+    List positions (ints) and the user's own mapping keys (the column in
+    ``variables.<column>``) are stepped over.
+    """
+    model: type[BaseModel] | None = SpecDocument
+    field: Any = None
+    skip_key = False
+    for part in location:
+        if isinstance(part, int):
+            continue
+        if skip_key:
+            skip_key = False
+            continue
+        if model is None:
+            return None, None
+        field = model.model_fields.get(str(part))
+        if field is None:
+            return None, None
+        skip_key = typing.get_origin(field.annotation) is dict
+        model = _as_model(field.annotation)
+    return model, field
 
 
 def _fields_at(location: tuple[Any, ...]) -> list[str]:
     """The valid keys of the table at ``location`` inside the spec, for suggestions."""
-    model: Any = SpecDocument
-    for part in location:
-        if isinstance(part, int) or model is None:
-            continue
-        if not (isinstance(model, type) and issubclass(model, BaseModel)):
-            return []
-        field = model.model_fields.get(str(part))
-        if field is None:
-            return []
-        annotation = field.annotation
-        model = _unwrap_model(annotation, part == "variables")
-    if isinstance(model, type) and issubclass(model, BaseModel):
-        return _model_fields(model)
-    return []
+    model, _ = _walk(location)
+    return list(model.model_fields) if model is not None else []
 
 
-def _unwrap_model(annotation: Any, is_mapping: bool) -> Any:
-    if is_mapping:
-        return Variable
-    args = getattr(annotation, "__args__", ())
-    for candidate in (annotation, *args):
-        if isinstance(candidate, type) and issubclass(candidate, BaseModel):
-            return candidate
-        for inner in getattr(candidate, "__args__", ()):
-            if isinstance(inner, type) and issubclass(inner, BaseModel):
-                return inner
-    return None
+def _field_at(location: tuple[Any, ...]) -> Any:
+    """The pydantic field (with its constraints) that ``location`` names, if any."""
+    return _walk(location)[1] if location else None
+
+
+def _bounds(field: Any) -> str:
+    """The allowed range of a numeric field, in words: "greater than 0 and at most 10000"."""
+    if field is None:
+        return ""
+    items: list[Any] = list(field.metadata)
+    for arg in typing.get_args(field.annotation):
+        for meta in getattr(arg, "__metadata__", ()):
+            items.extend(getattr(meta, "metadata", [meta]))
+    lower = upper = ""
+    for item in items:
+        for name, words in (("gt", "greater than"), ("ge", "at least")):
+            if getattr(item, name, None) is not None:
+                lower = f"{words} {getattr(item, name)}"
+        for name, words in (("lt", "less than"), ("le", "at most")):
+            if getattr(item, name, None) is not None:
+                upper = f"{words} {getattr(item, name)}"
+    return " and ".join(part for part in (lower, upper) if part)
 
 
 def format_location(location: tuple[Any, ...]) -> str:
@@ -382,6 +416,65 @@ def format_location(location: tuple[Any, ...]) -> str:
         else:
             text += ("." if text else "") + str(part)
     return text or "(top level)"
+
+
+def _short_repr(value: Any, limit: int = 60) -> str:
+    text = repr(value)
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+RANGE_ERRORS = {"greater_than", "greater_than_equal", "less_than", "less_than_equal"}
+
+
+def describe_problem(problem: Any, location: tuple[Any, ...]) -> str:
+    """One pydantic problem as a phrase that says what the value should be, e.g. "should be a number, got 'x'"."""
+    kind = problem["type"]
+    ctx = problem.get("ctx") or {}
+    got = problem.get("input")
+    got_text = "" if isinstance(got, dict | list | tuple) else f", got {_short_repr(got)}"
+    if kind in RANGE_ERRORS:
+        bounds = _bounds(_field_at(location))
+        detail = f"should be {bounds}" if bounds else str(problem["msg"]).replace("Input should", "should")
+    elif kind in ("model_type", "model_attributes_type", "dict_type"):
+        detail = "should be a table of keys (a [section] or {key = value})"
+    elif kind in ("tuple_type", "list_type"):
+        detail = 'should be a list in square brackets, like ["a", "b"]'
+    elif kind == "string_type":
+        detail = "should be text in double quotes"
+    elif kind in ("int_type", "int_parsing"):
+        detail = "should be a whole number"
+    elif kind == "int_from_float":
+        detail = "should be a whole number, without a decimal point"
+    elif kind in ("float_type", "float_parsing"):
+        detail = "should be a number"
+    elif kind == "finite_number":
+        detail = "should be a finite number, not nan or inf"
+    elif kind == "too_short":
+        detail = f"should list at least {ctx.get('min_length')} items"
+        got_text = f", got {ctx.get('actual_length')}"
+    elif kind == "too_long":
+        detail = f"should list at most {ctx.get('max_length')} items"
+        got_text = f", got {ctx.get('actual_length')}"
+    elif kind == "string_too_short":
+        detail = "must not be empty" if ctx.get("min_length") == 1 else (
+            f"should have at least {ctx.get('min_length')} characters")
+    elif kind == "string_too_long":
+        detail = f"should have at most {ctx.get('max_length')} characters"
+        got_text = f", got {len(got)}" if isinstance(got, str) else ""
+    elif kind == "string_pattern_mismatch" and ctx.get("pattern") == RULE_NAME_PATTERN:
+        detail = ("should be a short name of lower-case letters, digits and _ that starts with a letter "
+                  "(it becomes a results column), like \"material\"")
+    elif kind == "literal_error":
+        options = re.findall(r"'([^']*)'", str(ctx.get("expected", "")))
+        close = difflib.get_close_matches(str(got).lower(), options, n=1, cutoff=0.5) if options else []
+        hint = f"; did you mean {close[0]!r}?" if close else ""
+        detail = f"should be one of {ctx.get('expected')}{got_text}{hint}"
+        got_text = ""
+    else:
+        detail = str(problem["msg"]).removeprefix("Value error, ").replace("Input should", "should")
+        if kind == "value_error":  # our own validators' messages already say what was wrong
+            got_text = ""
+    return f"{detail}{got_text}"
 
 
 def describe_validation_error(error: ValidationError, source: Path) -> str:
@@ -396,15 +489,22 @@ def describe_validation_error(error: ValidationError, source: Path) -> str:
         valid = _fields_at(location[:-1])
         close = difflib.get_close_matches(key, valid, n=1, cutoff=0.6)
         hint = f"; did you mean `{close[0]}`?" if close else ""
-        valid_text = f" Valid keys here: {', '.join(valid)}." if valid else ""
+        listed = ", ".join(valid)
+        if not valid:
+            valid_text = "; remove it"
+        elif hint:
+            valid_text = f" Valid keys here: {listed}."
+        else:
+            valid_text = f"; valid keys here: {listed}."
         message = f"unknown key `{path}`{hint}{valid_text}"
     elif kind == "missing":
-        message = f"`{path}` is required but missing"
+        table = _as_model(getattr(_field_at(location), "annotation", None))
+        message = (f"the [{path}] table is required but missing; add it" if table is not None
+                   else f"`{path}` is required but missing; add it")
+    elif not location:
+        message = describe_problem(first, location)
     else:
-        got = first.get("input")
-        got_text = "" if isinstance(got, dict | list) else f", got {got!r}"
-        detail = str(first["msg"]).removeprefix("Value error, ")
-        message = f"`{path}`: {detail}{got_text}"
+        message = f"`{path}`: {describe_problem(first, location)}"
     more = len(problems) - 1
     suffix = f" (and {more} more problem{'s' if more > 1 else ''})" if more else ""
     return f"{source}: {message}{suffix}"
@@ -415,12 +515,25 @@ def parse_spec_text(text: str, source: Path) -> SpecDocument:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SpecError(f"{source}: not valid TOML ({exc}); check quotes, brackets and '=' signs") from None
+    except RecursionError:
+        raise SpecError(f"{source}: not valid TOML for a spec (arrays or tables nested too deeply); "
+                        "check the brackets") from None
     try:
         return SpecDocument.model_validate(raw)
     except ValidationError as exc:
         raise SpecError(describe_validation_error(exc, source)) from None
     except ValueError as exc:  # validators raising outside a field
         raise SpecError(f"{source}: {exc}") from None
+
+
+def _decode_spec(raw_bytes: bytes, source: Path) -> str:
+    try:
+        return raw_bytes.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw_bytes[: exc.start].count(b"\n") + 1
+        byte = raw_bytes[exc.start]
+        raise SpecError(f"{source}: the spec must be UTF-8 text, and line {line} has the byte 0x{byte:02X}, "
+                        "which is not UTF-8; re-save the file as UTF-8") from None
 
 
 def load_spec(path: str | Path) -> Spec:
@@ -432,17 +545,18 @@ def load_spec(path: str | Path) -> Spec:
         For a missing or unreadable file, invalid TOML, or any rule broken.
     """
     source = Path(path)
-    if not source.exists():
-        raise SpecError(f"{source}: spec file not found; check the path")
-    if not source.is_file():
-        raise SpecError(f"{source}: is a folder, not a spec file")
-    raw_bytes = source.read_bytes()
     try:
-        text = raw_bytes.decode("utf-8")
-    except UnicodeDecodeError:
-        raise SpecError(f"{source}: the spec must be UTF-8 text; re-save it as UTF-8") from None
+        if not source.exists():
+            raise SpecError(f"{source}: spec file not found; check the path")
+        if not source.is_file():
+            raise SpecError(f"{source}: is a folder, not a spec file; give the path of the .toml file")
+        raw_bytes = source.read_bytes()
+    except OSError as exc:
+        raise SpecError(f"{source}: the spec file cannot be read ({exc.strerror or type(exc).__name__}); "
+                        "check the path and its permissions") from None
+    text = _decode_spec(raw_bytes, source)
     document = parse_spec_text(text, source)
-    pairs = expand_pairs(document)
+    pairs = expand_pairs(document, source)
     return Spec(
         document=document,
         source_path=source.resolve(),
@@ -469,7 +583,8 @@ def with_sampler_overrides(spec: Spec, **overrides: int | None) -> Spec:
         sampler = Sampler.model_validate(merged)
     except ValidationError as exc:
         first = exc.errors(include_url=False)[0]
-        key = format_location(tuple(first["loc"]))
-        raise SpecError(f"--{key}: {first['msg']}, got {first.get('input')!r}") from None
+        location = tuple(first["loc"])
+        problem = describe_problem(first, ("sampler", *location))
+        raise SpecError(f"--{format_location(location)}: {problem}") from None
     document = spec.document.model_copy(update={"sampler": sampler})
     return spec.model_copy(update={"document": document})

@@ -18,6 +18,8 @@ from matplotlib import cbook
 from scipy.stats import norm
 
 from reportgen import figures as F
+from reportgen.figures.pair import _rho_view, _subsample
+from reportgen.figures.style import _fit_text, _text_width_pt
 
 SVG_NS = "{http://www.w3.org/2000/svg}"
 HOSTILE = "$x^2$ <script>alert('x')</script> --> & \\frac{$"
@@ -212,11 +214,11 @@ def test_small_scatter_stays_vector() -> None:
 
 
 def test_subsample_is_seeded_and_capped() -> None:
-    a = F._subsample(50_000, 4000, seed=0)
+    a = _subsample(50_000, 4000, seed=0)
     assert a.size == 4000 and np.unique(a).size == 4000 and np.all(np.diff(a) > 0)
-    assert np.array_equal(a, F._subsample(50_000, 4000, seed=0))
-    assert not np.array_equal(a, F._subsample(50_000, 4000, seed=1))
-    assert np.array_equal(F._subsample(10, 4000, seed=0), np.arange(10))
+    assert np.array_equal(a, _subsample(50_000, 4000, seed=0))
+    assert not np.array_equal(a, _subsample(50_000, 4000, seed=1))
+    assert np.array_equal(_subsample(10, 4000, seed=0), np.arange(10))
 
 
 def test_ellipse_geometry_closed_form_for_identity() -> None:
@@ -308,9 +310,9 @@ def test_figure_widths_match_page_layout() -> None:
 
 def test_rho_view_zooms_on_narrow_posterior() -> None:
     prior = np.full_like(GRID, 0.5)
-    lo, hi = F._rho_view(GRID, norm.pdf(GRID, 0.82, 0.015), prior, (0.79, 0.85))
+    lo, hi = _rho_view(GRID, norm.pdf(GRID, 0.82, 0.015), prior, (0.79, 0.85))
     assert 0.6 < lo < 0.79 and 0.85 < hi <= 1.0
-    lo, hi = F._rho_view(GRID, norm.pdf(GRID, 0.3, 0.3), prior, (-0.28, 0.85))
+    lo, hi = _rho_view(GRID, norm.pdf(GRID, 0.3, 0.3), prior, (-0.28, 0.85))
     assert (lo, hi) == (-1.0, 1.0)
 
 
@@ -376,10 +378,10 @@ def test_model_diagram_fits_very_long_texts() -> None:
 
 
 def test_fit_text_respects_box() -> None:
-    text, size = F._fit_text("μ₁, μ₂ ~ Normal(0, 10²) " * 4, 1.6, 0.45)
+    text, size = _fit_text("μ₁, μ₂ ~ Normal(0, 10²) " * 4, 1.6, 0.45)
     assert 6.0 <= size <= 8.5
     lines = text.split("\n")
     assert len(lines) * size * 1.2 <= 0.45 * 72 + 1e-9
-    assert all(F._text_width_pt(line, size) <= 1.6 * 72 + 1e-6 for line in lines)
-    text, size = F._fit_text("short", 1.6, 0.45)
+    assert all(_text_width_pt(line, size) <= 1.6 * 72 + 1e-6 for line in lines)
+    text, size = _fit_text("short", 1.6, 0.45)
     assert (text, size) == ("short", 8.5)

@@ -1,0 +1,92 @@
+"""Static report figures rendered to SVG text.
+
+Every public function here takes plain numbers or NumPy arrays and returns a
+complete SVG document as a ``str``.  The functions are pure: they build a
+:class:`matplotlib.figure.Figure` through the object-oriented API (pyplot is
+never imported, so nothing is registered globally and batch runs do not leak
+figures), render it and let it be garbage collected.
+
+Layout of the package
+---------------------
+* :mod:`reportgen.figures.style` — palette, page widths, the rc settings and
+  rendering helpers, text cleaning/wrapping/measuring and argument checks;
+* :mod:`reportgen.figures.summary` — :func:`forest_plot`,
+  :func:`correlation_matrix` and its :func:`correlation_cmap`;
+* :mod:`reportgen.figures.pair` — :func:`scatter_with_ellipses`,
+  :func:`ellipse_geometry`, :func:`rho_density`, :func:`parameter_densities`
+  and :class:`DensityPanel`;
+* :mod:`reportgen.figures.diagram` — :func:`model_diagram`.
+
+The public names are re-exported here; import them from ``reportgen.figures``.
+
+Rendering rules shared by all figures
+-------------------------------------
+* Output is byte-for-byte deterministic for equal inputs: the matplotlib
+  defaults are reset inside a private ``rc_context`` (a user's matplotlibrc
+  cannot change the look), SVG ids are derived from the fixed hash salt
+  ``"reportgen"`` and the date/creator metadata are omitted.
+* Text is stored as paths (``svg.fonttype = "path"``) in DejaVu Sans, the font
+  that ships with matplotlib, so viewers and PDF converters need no fonts.
+* Labels may come from untrusted input.  They are drawn as plain text: ``$`` is
+  escaped so mathtext is never triggered, control characters are dropped, and
+  long labels are wrapped or shortened with an ellipsis.  Markup such as
+  ``<script>`` cannot reach the SVG as markup; text only appears as paths and in
+  XML comments, which matplotlib escapes.
+* Dense scatter layers are rasterised (at :data:`RASTER_DPI`) once they have
+  more than :data:`RASTER_THRESHOLD` points so that PDF rendering stays fast.
+* Widths suit an A4 page with 18 mm margins: :data:`FULL_WIDTH` for full-width
+  figures and :data:`HALF_WIDTH` for figures shown side by side.
+
+The package changes ``matplotlib.rcParams`` only temporarily and is therefore,
+like matplotlib itself, not safe to call from several threads at once.
+"""
+
+from __future__ import annotations
+
+from reportgen.figures.diagram import model_diagram
+from reportgen.figures.pair import (
+    DensityPanel,
+    ellipse_geometry,
+    parameter_densities,
+    rho_density,
+    scatter_with_ellipses,
+)
+from reportgen.figures.style import (
+    ALERT,
+    AMBER,
+    FULL_WIDTH,
+    HALF_WIDTH,
+    INK,
+    MIST,
+    OK,
+    RASTER_DPI,
+    RASTER_THRESHOLD,
+    SLATE,
+    TEAL,
+    plain_text,
+)
+from reportgen.figures.summary import correlation_cmap, correlation_matrix, forest_plot
+
+__all__ = [
+    "ALERT",
+    "AMBER",
+    "FULL_WIDTH",
+    "HALF_WIDTH",
+    "INK",
+    "MIST",
+    "OK",
+    "RASTER_DPI",
+    "RASTER_THRESHOLD",
+    "SLATE",
+    "TEAL",
+    "DensityPanel",
+    "correlation_cmap",
+    "correlation_matrix",
+    "ellipse_geometry",
+    "forest_plot",
+    "model_diagram",
+    "parameter_densities",
+    "plain_text",
+    "rho_density",
+    "scatter_with_ellipses",
+]

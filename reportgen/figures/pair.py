@@ -1,0 +1,500 @@
+"""Figures of one pair: data scatter with ellipses, density of rho, parameter densities."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.patches import Ellipse, Patch
+from matplotlib.ticker import MaxNLocator
+from numpy.typing import ArrayLike
+from scipy.stats import chi2
+
+from reportgen.figures.style import (
+    _BROWN,
+    _SHADE_ALPHA,
+    AMBER,
+    FULL_WIDTH,
+    HALF_WIDTH,
+    INK,
+    MIST,
+    RASTER_THRESHOLD,
+    SLATE,
+    TEAL,
+    _check_density,
+    _check_grid,
+    _check_interval,
+    _check_mass,
+    _check_rope,
+    _check_thresholds,
+    _clean,
+    _decimals,
+    _label,
+    _num,
+    _pct,
+    _styled,
+    _to_svg,
+    _vector,
+)
+
+__all__ = [
+    "DensityPanel",
+    "ellipse_geometry",
+    "parameter_densities",
+    "rho_density",
+    "scatter_with_ellipses",
+]
+
+# --------------------------------------------------------------------------
+# Density helpers
+# --------------------------------------------------------------------------
+
+
+def _mass_span(grid: np.ndarray, density: np.ndarray, mass: float) -> tuple[float, float]:
+    """Central interval holding *mass* of a density tabulated on *grid*."""
+    steps = 0.5 * (density[1:] + density[:-1]) * np.diff(grid)
+    cdf = np.concatenate([[0.0], np.cumsum(steps)])
+    total = cdf[-1]
+    if not math.isfinite(total) or total <= 0:
+        return float(grid[0]), float(grid[-1])
+    cdf /= total
+    tail = (1.0 - mass) / 2.0
+    lo = float(np.interp(tail, cdf, grid))
+    hi = float(np.interp(1.0 - tail, cdf, grid))
+    return lo, hi
+
+
+def _shade_interval(ax: Any, grid: np.ndarray, density: np.ndarray,
+                    interval: tuple[float, float], **kwargs: Any) -> None:
+    """Fill the area under *density* between the interval end points."""
+    lo, hi = max(interval[0], grid[0]), min(interval[1], grid[-1])
+    if hi <= lo:
+        return
+    inner = grid[(grid > lo) & (grid < hi)]
+    xs = np.concatenate([[lo], inner, [hi]])
+    ax.fill_between(xs, 0.0, np.interp(xs, grid, density), linewidth=0, **kwargs)
+
+
+# --------------------------------------------------------------------------
+# Scatter plot with probability ellipses
+# --------------------------------------------------------------------------
+
+
+def ellipse_geometry(cov: ArrayLike, mass: float) -> tuple[float, float, float]:
+    """Shape of a bivariate normal's central probability ellipse.
+
+    The ellipse ``{z : (z - mu)' cov^-1 (z - mu) <= q}`` with ``q`` the *mass*
+    quantile of the chi-square distribution with 2 degrees of freedom contains
+    probability *mass*.
+
+    Parameters
+    ----------
+    cov : array_like, shape (2, 2)
+        Symmetric positive-definite covariance matrix.
+    mass : float
+        Probability inside the ellipse, strictly between 0 and 1.
+
+    Returns
+    -------
+    width, height, angle_deg : float
+        Full length of the major and the minor axis, and the counter-clockwise
+        angle of the major axis from the x axis in degrees, in (-90, 90] —
+        the arguments of :class:`matplotlib.patches.Ellipse`.
+    """
+    c = np.asarray(cov, dtype=float)
+    if c.shape != (2, 2) or not np.all(np.isfinite(c)):
+        raise ValueError("cov must be a finite 2 x 2 matrix")
+    if not np.isclose(c[0, 1], c[1, 0], rtol=1e-8, atol=1e-12 * max(1.0, np.abs(c).max())):
+        raise ValueError("cov must be symmetric")
+    c = 0.5 * (c + c.T)
+    mass = _check_mass(mass)
+    values, vectors = np.linalg.eigh(c)
+    if values[0] <= 0:
+        raise ValueError("cov must be positive definite")
+    q = float(chi2.ppf(mass, df=2))
+    width = 2.0 * math.sqrt(q * values[1])
+    height = 2.0 * math.sqrt(q * values[0])
+    angle = math.degrees(math.atan2(vectors[1, 1], vectors[0, 1]))
+    if angle <= -90.0:
+        angle += 180.0
+    elif angle > 90.0:
+        angle -= 180.0
+    return width, height, angle
+
+
+def _subsample(n: int, max_points: int, seed: int) -> np.ndarray:
+    """Indices of at most *max_points* of *n* points, seeded, in original order."""
+    if n <= max_points:
+        return np.arange(n)
+    rng = np.random.default_rng(seed)
+    return np.sort(rng.choice(n, size=max_points, replace=False))
+
+
+@_styled
+def scatter_with_ellipses(
+    x: ArrayLike,
+    y: ArrayLike,
+    *,
+    mean: tuple[float, float],
+    cov: ArrayLike,
+    x_label: str,
+    y_label: str,
+    max_points: int = 4000,
+    seed: int = 0,
+) -> str:
+    """Scatter plot of the data with the fitted 50% and 95% ellipses.
+
+    The ellipses are the central 50% and 95% probability regions of the
+    bivariate normal with the given mean and covariance (radius from the
+    chi-square quantile with 2 degrees of freedom, see
+    :func:`ellipse_geometry`).  Pairs with a non-finite coordinate are dropped.
+    When more than *max_points* pairs remain, a seeded random subset of
+    *max_points* pairs (``numpy.random.default_rng(seed)``) is drawn and a note
+    "n of N points shown" is added; axis limits still cover all pairs.  More
+    than :data:`RASTER_THRESHOLD` drawn points are rasterised at
+    :data:`RASTER_DPI`.  Half width, 3.3 x 3.0 in.
+
+    Parameters
+    ----------
+    x, y : array_like
+        Observations, equal length.
+    mean : (float, float)
+        Mean of the fitted bivariate normal.
+    cov : array_like, shape (2, 2)
+        Covariance of the fitted bivariate normal.
+    x_label, y_label : str
+        Axis labels (untrusted text).
+    max_points : int, default 4000
+        Largest number of points drawn.
+    seed : int, default 0
+        Seed of the subsample.
+
+    Returns
+    -------
+    str
+        The SVG document.
+    """
+    xa = _vector("x", x)
+    ya = _vector("y", y, xa.size)
+    if max_points < 1:
+        raise ValueError("max_points must be at least 1")
+    mu = _vector("mean", mean, 2)
+    if not np.all(np.isfinite(mu)):
+        raise ValueError("mean must be finite")
+    geoms = [(m, ellipse_geometry(cov, m)) for m in (0.5, 0.95)]
+    c = np.asarray(cov, dtype=float)
+
+    keep = np.isfinite(xa) & np.isfinite(ya)
+    xa, ya = xa[keep], ya[keep]
+    total = xa.size
+    idx = _subsample(total, int(max_points), int(seed))
+    xs, ys = xa[idx], ya[idx]
+    drawn = xs.size
+
+    fig = Figure(figsize=(HALF_WIDTH, 3.0), layout="constrained")
+    ax = fig.add_subplot()
+    ax.grid(True, color=MIST, linewidth=0.5)
+
+    size = 14.0 if drawn <= 100 else 9.0 if drawn <= 1000 else 4.0
+    alpha = 0.75 if drawn <= RASTER_THRESHOLD else 0.5 if drawn <= 2000 else 0.35
+    if drawn:
+        ax.scatter(xs, ys, s=size, color=SLATE, alpha=alpha, linewidths=0, zorder=2,
+                   rasterized=drawn > RASTER_THRESHOLD)
+
+    styles = {0.5: {"linewidth": 1.6, "linestyle": "-"},
+              0.95: {"linewidth": 1.2, "linestyle": (0, (5, 2.5))}}
+    handles = []
+    for m, (w, h, angle) in geoms:
+        patch = Ellipse((mu[0], mu[1]), w, h, angle=angle, fill=False, edgecolor=TEAL,
+                        zorder=3, **styles[m])
+        ax.add_patch(patch)
+        handles.append(Line2D([], [], color=TEAL, **styles[m]))
+    ax.plot([mu[0]], [mu[1]], marker="+", color=TEAL, markersize=6, markeredgewidth=1.2,
+            zorder=3)
+
+    # limits: all data (not just the drawn subset) and the whole 95% ellipse
+    q95 = float(chi2.ppf(0.95, df=2))
+    ext = np.sqrt(q95 * np.diag(c))
+    for axis_set, data, centre, half in ((ax.set_xlim, xa, mu[0], ext[0]),
+                                         (ax.set_ylim, ya, mu[1], ext[1])):
+        lo, hi = centre - half, centre + half
+        if data.size:
+            lo, hi = min(lo, float(data.min())), max(hi, float(data.max()))
+        pad = 0.05 * (hi - lo) if hi > lo else 1.0
+        axis_set(lo - pad, hi + pad)
+    ax.xaxis.set_major_locator(MaxNLocator(5))
+    ax.yaxis.set_major_locator(MaxNLocator(5))
+
+    ax.set_xlabel(_label(x_label, 200.0, 8.0))
+    ax.set_ylabel(_label(y_label, 180.0, 8.0))
+    note = f"{drawn:,} of {total:,} points shown" if drawn < total else None
+    legend = ax.legend(handles, ["50% ellipse", "95% ellipse"], loc="lower left",
+                       bbox_to_anchor=(0.0, 1.0), ncols=2, title=note, alignment="left",
+                       title_fontproperties={"size": 6.5})
+    legend.get_title().set_color(SLATE)
+    return _to_svg(fig)
+
+
+# --------------------------------------------------------------------------
+# Posterior density of rho
+# --------------------------------------------------------------------------
+
+
+def _rho_view(grid: np.ndarray, posterior: np.ndarray, prior: np.ndarray,
+              interval: tuple[float, float]) -> tuple[float, float]:
+    """x range of :func:`rho_density`: where the posterior or prior matters."""
+    plo, phi = _mass_span(grid, posterior, 0.999)
+    plo, phi = min(plo, interval[0]), max(phi, interval[1])
+    qlo, qhi = _mass_span(grid, prior, 0.99)
+    ulo, uhi = min(plo, qlo), max(phi, qhi)
+    width = phi - plo
+    if width < 0.3 * (uhi - ulo):
+        # narrow posterior: zoom on it; the prior shows as a near-flat line
+        pad = max(0.6 * width, 0.05)
+        lo, hi = plo - pad, phi + pad
+    else:
+        pad = 0.04 * (uhi - ulo)
+        lo, hi = ulo - pad, uhi + pad
+    lo = max(lo, -1.0, float(grid[0]))
+    hi = min(hi, 1.0, float(grid[-1]))
+    if hi <= lo:
+        lo, hi = max(-1.0, float(grid[0])), min(1.0, float(grid[-1]))
+    return lo, hi
+
+
+@_styled
+def rho_density(
+    grid: ArrayLike,
+    posterior: ArrayLike,
+    *,
+    prior: ArrayLike,
+    interval: tuple[float, float],
+    mass: float,
+    thresholds: Sequence[float] = (),
+    rope: tuple[float, float] | None = None,
+    reference: ArrayLike | None = None,
+    reference_label: str = "Exact reference",
+) -> str:
+    """Posterior and prior density of the correlation rho.
+
+    Posterior as a teal line with the credible interval shaded beneath it,
+    prior as an amber dashed line, an optional reference density (for example
+    an exact or numerically integrated posterior) as an ink dotted line,
+    thresholds as dashed amber lines and the ROPE as a shaded band.  The x
+    range covers where the posterior or the prior has mass, clipped to
+    [-1, 1]; when the posterior is much narrower than the prior the view
+    zooms on the posterior, and thresholds or a ROPE outside the view are
+    listed in a small note at that edge instead of being drawn.  Half width, 3.3 x 3.0 in.
+
+    Parameters
+    ----------
+    grid : array_like
+        Strictly increasing rho values at which the densities are tabulated.
+    posterior : array_like
+        Posterior density on *grid*.
+    prior : array_like
+        Prior density on *grid*.
+    interval : (float, float)
+        Credible interval of rho.
+    mass : float
+        Probability mass of *interval*.
+    thresholds : sequence of float, default ()
+        Decision thresholds on rho.
+    rope : (float, float) or None, default None
+        Region of practical equivalence.
+    reference : array_like or None, default None
+        Reference density on *grid*.
+    reference_label : str, default "Exact reference"
+        Legend text of the reference curve (untrusted text).
+
+    Returns
+    -------
+    str
+        The SVG document.
+    """
+    g = _check_grid(grid)
+    post = _check_density("posterior", g, posterior)
+    pri = _check_density("prior", g, prior)
+    ref = None if reference is None else _check_density("reference", g, reference)
+    ival = _check_interval(interval)
+    mass = _check_mass(mass)
+    thr = _check_thresholds(thresholds)
+    rope_ = _check_rope(rope)
+
+    lo, hi = _rho_view(g, post, pri, ival)
+    view = (g >= lo) & (g <= hi)
+
+    fig = Figure(figsize=(HALF_WIDTH, 3.0), layout="constrained")
+    ax = fig.add_subplot()
+    handles: list[Any] = []
+    names: list[str] = []
+
+    rope_visible = rope_ is not None and rope_[1] > lo and rope_[0] < hi
+    if rope_visible:
+        ax.axvspan(*rope_, color=MIST, linewidth=0, zorder=0)
+    _shade_interval(ax, g, post, ival, color=TEAL, alpha=_SHADE_ALPHA, zorder=1)
+    ax.plot(g, post, color=TEAL, linewidth=1.6, zorder=4)
+    handles += [Line2D([], [], color=TEAL, linewidth=1.6),
+                Patch(facecolor=TEAL, alpha=_SHADE_ALPHA, edgecolor="none")]
+    names += ["Posterior", f"{_pct(mass)} credible interval"]
+    prior_style = {"color": AMBER, "linewidth": 1.3, "linestyle": (0, (4, 2))}
+    ax.plot(g, pri, zorder=3, **prior_style)
+    handles.append(Line2D([], [], **prior_style))
+    names.append("Prior")
+    if ref is not None:
+        ref_style = {"color": INK, "linewidth": 1.3, "linestyle": (0, (1, 1.6))}
+        ax.plot(g, ref, zorder=5, **ref_style)
+        handles.append(Line2D([], [], **ref_style))
+        names.append(_label(reference_label, 75.0, 7.0, max_lines=2))
+
+    # elements outside the (possibly zoomed) view are listed at the edge
+    notes: dict[str, list[str]] = {"left": [], "right": []}
+    thr_style = {"color": AMBER, "linewidth": 0.9, "linestyle": (0, (2.5, 2))}
+    hidden = [t for t in thr if not lo <= t <= hi]
+    for t in thr:
+        if lo <= t <= hi:
+            ax.axvline(t, zorder=2, **thr_style)
+    if len(hidden) < len(thr):
+        handles.append(Line2D([], [], **thr_style))
+        names.append("Threshold")
+    for side, values in (("left", [t for t in hidden if t < lo]),
+                         ("right", [t for t in hidden if t > hi])):
+        if values:
+            word = "threshold" if len(values) == 1 else "thresholds"
+            notes[side].append(f"{word} {', '.join(_num(t) for t in values)}")
+    if rope_ is not None:
+        if rope_visible:
+            handles.append(Patch(facecolor=MIST, edgecolor="none"))
+            names.append("ROPE")
+        else:
+            side = "left" if rope_[1] <= lo else "right"
+            notes[side].append(f"ROPE [{_num(rope_[0])}, {_num(rope_[1])}]")
+
+    ymax = max(float(post[view].max(initial=0.0)), float(pri[view].max(initial=0.0)),
+               0.0 if ref is None else float(ref[view].max(initial=0.0)))
+    headroom = 1.18 if notes["left"] or notes["right"] else 1.08
+    ax.set_xlim(lo, hi)
+    ax.set_ylim(0.0, headroom * ymax if ymax > 0 else 1.0)
+    ax.xaxis.set_major_locator(MaxNLocator(5, steps=[1, 2, 2.5, 5, 10]))
+    ax.yaxis.set_major_locator(MaxNLocator(4))
+    ax.set_xlabel("Correlation ρ")
+    ax.set_ylabel("Density")
+
+    if notes["left"]:
+        ax.text(0.01, 0.98, "\u2190 " + "\n".join(notes["left"]), transform=ax.transAxes,
+                ha="left", va="top", fontsize=6.5, color=_BROWN, linespacing=1.25)
+    if notes["right"]:
+        ax.text(0.99, 0.98, "\n".join(notes["right"]) + " \u2192", transform=ax.transAxes,
+                ha="right", va="top", fontsize=6.5, color=_BROWN, linespacing=1.25)
+
+    ax.legend(handles, names, loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=2,
+              fontsize=7)
+    return _to_svg(fig)
+
+
+# --------------------------------------------------------------------------
+# Small multiples of parameter densities
+# --------------------------------------------------------------------------
+
+
+@dataclass(frozen=True, eq=False)
+class DensityPanel:
+    """One panel of :func:`parameter_densities`.
+
+    Parameters
+    ----------
+    title : str
+        Panel title, e.g. "σ₁ (weight)" (untrusted text).
+    grid : numpy.ndarray
+        Strictly increasing parameter values.
+    density : numpy.ndarray
+        Posterior density on *grid*.
+    interval : (float, float)
+        Credible interval, shaded under the curve and printed under the title.
+    unit : str, default ""
+        Unit shown as the x-axis label; empty for none.
+
+    Notes
+    -----
+    Instances are immutable; equality is identity (arrays have no single
+    truth value).
+    """
+
+    title: str
+    grid: np.ndarray
+    density: np.ndarray
+    interval: tuple[float, float]
+    unit: str = ""
+
+    def __post_init__(self) -> None:
+        grid = _check_grid(self.grid)
+        object.__setattr__(self, "grid", grid)
+        object.__setattr__(self, "density", _check_density("density", grid, self.density))
+        object.__setattr__(self, "interval", _check_interval(self.interval))
+
+
+@_styled
+def parameter_densities(panels: Sequence[DensityPanel]) -> str:
+    """Small multiples of marginal posterior densities, one panel each.
+
+    Up to five panels share one row; more panels use rows of three.  Each panel
+    shows the density (teal), its credible interval shaded and printed as
+    "[lower, upper]" under the title, and the unit as x-axis label.  The y axis
+    is hidden because density heights are not comparable across parameters.
+    Full width; 1.9 in tall for one row, 1.75 in per row otherwise.
+
+    Parameters
+    ----------
+    panels : sequence of DensityPanel
+        Panels in reading order (typically μ₁, μ₂, σ₁, σ₂, ρ).
+
+    Returns
+    -------
+    str
+        The SVG document.
+    """
+    panels = list(panels)
+    if not panels:
+        raise ValueError("parameter_densities needs at least one panel")
+    n = len(panels)
+    ncols = n if n <= 5 else 3
+    nrows = math.ceil(n / ncols)
+    height = 1.9 if nrows == 1 else 1.75 * nrows
+    fig = Figure(figsize=(FULL_WIDTH, height), layout="constrained")
+    axes = fig.subplots(nrows, ncols, squeeze=False).ravel()
+    title_pt = FULL_WIDTH * 72.0 / ncols - 14.0
+
+    for ax, panel in zip(axes, panels, strict=False):
+        g, d = panel.grid, panel.density
+        lo, hi = _mass_span(g, d, 0.999)
+        lo, hi = min(lo, panel.interval[0]), max(hi, panel.interval[1])
+        pad = 0.15 * (hi - lo) if hi > lo else 0.5 * (g[-1] - g[0])
+        lo, hi = max(lo - pad, float(g[0])), min(hi + pad, float(g[-1]))
+        view = (g >= lo) & (g <= hi)
+
+        _shade_interval(ax, g, d, panel.interval, color=TEAL, alpha=_SHADE_ALPHA, zorder=1)
+        ax.plot(g, d, color=TEAL, linewidth=1.4, zorder=2)
+        ax.set_xlim(lo, hi)
+        top = float(d[view].max(initial=0.0))
+        ax.set_ylim(0.0, 1.1 * top if top > 0 else 1.0)
+        ax.yaxis.set_visible(False)
+        ax.spines["left"].set_visible(False)
+        ax.xaxis.set_major_locator(MaxNLocator(3, min_n_ticks=2))
+
+        decimals = _decimals(panel.interval[1] - panel.interval[0])
+        span = f"[{_num(panel.interval[0], decimals)}, {_num(panel.interval[1], decimals)}]"
+        ax.set_title(_label(panel.title, title_pt, 8.5, max_lines=2), fontsize=8.5,
+                     fontweight="bold", pad=13)
+        ax.text(0.0, 1.02, span, transform=ax.transAxes, ha="left", va="bottom",
+                fontsize=7, color=SLATE)
+        if _clean(panel.unit):
+            ax.set_xlabel(_label(panel.unit, title_pt, 7.5, max_lines=1), fontsize=7.5,
+                          color=SLATE)
+    for ax in axes[n:]:
+        ax.set_visible(False)
+    return _to_svg(fig)
