@@ -29,17 +29,12 @@ MAX_CHAINS = 64
 CONTROL_CHARACTERS = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
 
 
-def _wants_number(annotation: Any) -> bool:
-    """Whether a field's type takes an int or a float (and not a bool)."""
-    found: set[Any] = set()
-
-    def walk(node: Any) -> None:
-        found.add(node)
-        for arg in typing.get_args(node):
-            walk(arg)
-
-    walk(annotation)
-    return bool(found & {int, float}) and bool not in found
+def _types_in(annotation: Any) -> set[Any]:
+    """Every type named in a field's annotation (``int | None`` gives int and NoneType)."""
+    found = {annotation}
+    for arg in typing.get_args(annotation):
+        found |= _types_in(arg)
+    return found
 
 
 class _Frozen(BaseModel):
@@ -54,11 +49,11 @@ class _Strict(_Frozen):
     @field_validator("*", mode="before")
     @classmethod
     def _plain_values(cls, value: Any, info: ValidationInfo) -> Any:
-        if isinstance(value, bool):
-            field = cls.model_fields.get(info.field_name or "")
-            if field is not None and _wants_number(field.annotation):
-                raise ValueError(f"should be a number, not {str(value).lower()}")
-        elif isinstance(value, str):
+        field = cls.model_fields.get(info.field_name or "")
+        types = _types_in(field.annotation) if field is not None else set()
+        if isinstance(value, bool) and types & {int, float} and bool not in types:
+            raise ValueError(f"should be a number, not {str(value).lower()}")
+        if isinstance(value, str) and str in types:
             control = CONTROL_CHARACTERS.search(value)
             if control:
                 raise ValueError(f"contains the control character U+{ord(control.group()):04X}; remove it")
@@ -83,12 +78,13 @@ class DataSource(_Strict):
     columns: tuple[str, ...] = ()
     missing: Literal["listwise", "fail"] = "listwise"
 
-    @model_validator(mode="after")
-    def _columns_once(self) -> DataSource:
-        repeated = sorted({c for c in self.columns if self.columns.count(c) > 1})
+    @field_validator("columns")
+    @classmethod
+    def _columns_once(cls, columns: tuple[str, ...]) -> tuple[str, ...]:
+        repeated = sorted({c for c in columns if columns.count(c) > 1})
         if repeated:
-            raise ValueError(f"`columns` lists `{repeated[0]}` more than once; list each column once")
-        return self
+            raise ValueError(f"lists `{repeated[0]}` more than once; list each column once")
+        return columns
 
 
 class Variable(_Strict):
@@ -397,24 +393,34 @@ def _bounds(field: Any) -> str:
     for arg in typing.get_args(field.annotation):
         for meta in getattr(arg, "__metadata__", ()):
             items.extend(getattr(meta, "metadata", [meta]))
+    def number(value: Any) -> str:
+        return f"{value:g}" if isinstance(value, float) else str(value)
+
     lower = upper = ""
     for item in items:
         for name, words in (("gt", "greater than"), ("ge", "at least")):
             if getattr(item, name, None) is not None:
-                lower = f"{words} {getattr(item, name)}"
+                lower = f"{words} {number(getattr(item, name))}"
         for name, words in (("lt", "less than"), ("le", "at most")):
             if getattr(item, name, None) is not None:
-                upper = f"{words} {getattr(item, name)}"
+                upper = f"{words} {number(getattr(item, name))}"
     return " and ".join(part for part in (lower, upper) if part)
 
 
+BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
+
+
 def format_location(location: tuple[Any, ...]) -> str:
+    """A key path as the user would write it: ``pairs[0].priors.rho.a``, ``variables."temp (C)".unit``."""
     text = ""
     for part in location:
         if isinstance(part, int):
             text += f"[{part}]"
         else:
-            text += ("." if text else "") + str(part)
+            key = str(part)
+            if not BARE_KEY.match(key):
+                key = '"' + key.replace("\\", "\\\\").replace('"', '\\"') + '"'
+            text += ("." if text else "") + key
     return text or "(top level)"
 
 
