@@ -81,7 +81,7 @@ def logo_data_uri(spec: Spec) -> str:
     """The logo, checked and inlined: the renderer never opens the user's path itself."""
     if not spec.document.report.logo:
         return ""
-    path = (spec.base_dir / spec.document.report.logo).resolve()
+    path = spec.resolve_input(spec.document.report.logo, "report.logo")
     where = f"{path} (report.logo)"
     if not path.is_file():
         raise ReportAssetError(f"{where}: logo file not found; fix the path or remove report.logo")

@@ -61,7 +61,7 @@ def prepare(spec: Spec) -> Prepared:
     pairs = load_pairs(spec, table)
     report.logo_data_uri(spec)  # a bad logo is refused now, not after the fits
     if spec.document.report.templates:
-        report.template_folders((spec.base_dir / spec.document.report.templates).resolve())
+        report.template_folders(spec.resolve_input(spec.document.report.templates, "report.templates"))
     return Prepared(spec=spec, table=table, pairs=pairs)
 
 
@@ -179,7 +179,7 @@ def run(
     if progress:
         progress("rendering the report", len(prepared.pairs), len(prepared.pairs))
     context = report.build_context(spec, results, pair_data, record)
-    user_templates = ((spec.base_dir / spec.document.report.templates).resolve()
+    user_templates = (spec.resolve_input(spec.document.report.templates, "report.templates")
                       if spec.document.report.templates else None)
     html = report.render_html(context, user_templates)
     pdf, refused = report.render_pdf(html, context["meta"]["date"])

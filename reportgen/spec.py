@@ -77,6 +77,9 @@ class DataSource(_Strict):
     sheet: str = ""
     columns: tuple[str, ...] = ()
     missing: Literal["listwise", "fail"] = "listwise"
+    # When true, data.path, report.logo and report.templates must lie inside the spec's folder:
+    # for specs that arrive from elsewhere and must not read files beside or above it.
+    confine_to_spec_folder: bool = False
 
     @field_validator("columns")
     @classmethod
@@ -283,7 +286,22 @@ class Spec(_Frozen):
 
     @property
     def data_path(self) -> Path:
-        return (self.base_dir / self.document.data.path).resolve()
+        return self.resolve_input(self.document.data.path, "data.path")
+
+    def resolve_input(self, relative: str, key: str) -> Path:
+        """An input path from the spec, resolved against the spec's folder.
+
+        Raises SpecError when ``data.confine_to_spec_folder`` is set and the path
+        (after following ``..`` and links) leaves that folder.
+        """
+        path = (self.base_dir / relative).resolve()
+        if self.document.data.confine_to_spec_folder:
+            folder = self.base_dir.resolve()
+            if path != folder and folder not in path.parents:
+                raise SpecError(f"{self.source_path}: `{key}` = {relative!r} leads outside the spec's folder, "
+                                "which data.confine_to_spec_folder = true forbids; move the file into "
+                                f"{folder} or set the option to false")
+        return path
 
     @property
     def columns_needed(self) -> tuple[str, ...]:

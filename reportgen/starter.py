@@ -44,6 +44,7 @@ format = "auto"      # auto | csv | excel | parquet
 sheet = ""           # Excel only: which sheet (required when there are several)
 columns = []         # optional: restrict the table to these columns
 missing = "listwise" # listwise: drop rows missing either value of a pair | fail: refuse any missing value
+confine_to_spec_folder = false  # true: data, logo and templates must lie inside this spec's folder
 
 # Display labels and units, one table per column (optional).
 {variable_tables}
