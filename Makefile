@@ -4,7 +4,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: setup demo test lint sample-reports bench clean
+.PHONY: setup demo test sample-reports bench sbc clean
 
 $(STAMP): pyproject.toml requirements.lock
 	bash scripts/ensure_system_packages.sh
@@ -29,6 +29,10 @@ sample-reports: $(STAMP)
 
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_fit.py
+	$(BIN)/python benchmarks/bench_pairs.py
+
+sbc: $(STAMP)
+	$(BIN)/python benchmarks/sbc.py
 
 clean:
 	rm -rf $(VENV) demo_output reportgen-demo .pytest_cache
