@@ -52,7 +52,9 @@ def _floor_log10(value: float) -> int:
 
 
 def format_rho(value: float) -> str:
-    return f"{value:+.2f}".replace("+", "") if value >= 0 else f"\u2212{abs(value):.2f}"
+    """Two decimals with a true minus sign, as correlations are printed in the report."""
+    text = f"{abs(value):.2f}"
+    return f"\u2212{text}" if value < 0 and text != "0.00" else text
 
 
 def rule_statement(rule: Rule) -> str:

@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 from jinja2 import ChoiceLoader, Environment, FileSystemLoader, StrictUndefined, select_autoescape
 
-from reportgen import figures, interpret
+from reportgen import figures, interpret, narrative
 from reportgen.data import PairData
 from reportgen.errors import ReportAssetError
 from reportgen.results import PairResult, RunResults
@@ -194,6 +194,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "y_label": result.y_label,
         "n": f"{result.n:,}",
         "n_dropped": f"{result.n_dropped:,}",
+        "has_dropped": result.n_dropped > 0,
         "median": _rho(result.rho.median),
         "interval": f"{_rho(result.rho.lower)} to {_rho(result.rho.upper)}",
         "hdi": f"{_rho(result.hdi[0])} to {_rho(result.hdi[1])}",
@@ -277,8 +278,6 @@ def build_context(
     priors = document.priors
     failed = results.failed
     warned = [p for p in results.pairs if p.status == "warn"]
-    from reportgen import narrative
-
     return {
         "meta": {
             "title": meta.title,
