@@ -106,7 +106,7 @@ def cross_check(
     probabilities: dict[str, float],
 ) -> CrossCheck:
     a, b = priors.rho.shapes
-    posterior = exact.exact_posterior(n, float(np.clip(r, -0.999999, 0.999999)), a, b)
+    posterior = exact.exact_posterior(n, float(np.clip(r, -1.0 + 1e-9, 1.0 - 1e-9)), a, b)
     values = np.ravel(rho_draws)
     sd = float(posterior.sd)
     allowance = 0.0 if priors.is_reference else VAGUE_PRIOR_ALLOWANCE_SD * sd
@@ -132,7 +132,7 @@ def cross_check(
         mean_allowed=MCSE_MULTIPLE * mcse_mean + allowance,
         rule_gaps=tuple(gaps),
         log_bf10=float(posterior.log_bf10),
-        savage_dickey_bf10=savage_dickey_bf10(values, prior_zero),
+        savage_dickey_bf10=savage_dickey_bf10(values, prior_zero) if priors_near_reference(priors) else float("nan"),
         grid=grid,
         density=np.asarray(posterior.density),
     )

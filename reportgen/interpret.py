@@ -51,6 +51,18 @@ def _floor_log10(value: float) -> int:
     return math.floor(math.log10(value))
 
 
+def format_threshold(value: float) -> str:
+    """A threshold the client chose, shown as written (0.125 stays 0.125), with a true minus sign."""
+    text = f"{abs(value):.6g}"
+    text = text if "." in text or "e" in text else text + ".0"
+    return f"\u2212{text}" if value < 0 else text
+
+
+def format_required(value: float) -> str:
+    """A required probability as chosen (0.999 stays 0.999)."""
+    return f"{value:.6g}"
+
+
 def format_rho(value: float) -> str:
     """Two decimals with a true minus sign, as correlations are printed in the report."""
     text = f"{abs(value):.2f}"
@@ -60,10 +72,10 @@ def format_rho(value: float) -> str:
 def rule_statement(rule: Rule) -> str:
     """The rule as a short statement about rho, e.g. "ρ > 0.50"."""
     if rule.statement == "above":
-        return f"\u03c1 > {format_rho(rule.threshold or 0.0)}"
+        return f"\u03c1 > {format_threshold(rule.threshold or 0.0)}"
     if rule.statement == "below":
-        return f"\u03c1 < {format_rho(rule.threshold or 0.0)}"
-    return f"{format_rho(rule.lower or 0.0)} < \u03c1 < {format_rho(rule.upper or 0.0)}"
+        return f"\u03c1 < {format_threshold(rule.threshold or 0.0)}"
+    return f"{format_threshold(rule.lower or 0.0)} < \u03c1 < {format_threshold(rule.upper or 0.0)}"
 
 
 def rule_verdict(probability: float, required: float) -> str:
@@ -75,7 +87,7 @@ def rule_sentence(rule: Rule, probability: float) -> str:
     name = rule.description or rule.name.replace("_", " ")
     shown = format_probability(probability)
     base = (f"The posterior probability that {rule_statement(rule)} is {shown}; "
-            f"the rule \u201c{name}\u201d asks for at least {rule.required_probability:.2f}, ")
+            f"the rule \u201c{name}\u201d asks for at least {format_required(rule.required_probability)}, ")
     if verdict == "met":
         return base + "so it is met."
     if probability <= 1.0 - rule.required_probability:
@@ -83,15 +95,19 @@ def rule_sentence(rule: Rule, probability: float) -> str:
     return base + "so it is not met: the data do not settle it either way."
 
 
-def rope_sentence(rope: Rope, probability: float, decision: str, mass: float) -> str:
-    band = f"{format_rho(rope.lower)} to {format_rho(rope.upper)}"
+def rope_sentence(rope: Rope, probability: float, decision: str, mass: float,
+                  hdi: tuple[float, float] = (float("nan"), float("nan"))) -> str:
+    """Kruschke's (2018) HDI + ROPE reading; the HDI is named with its limits, since it can differ
+    from the equal-tailed interval shown elsewhere."""
+    band = f"{format_threshold(rope.lower)} to {format_threshold(rope.upper)}"
     start = (f"The probability that \u03c1 lies in the band treated as practically zero ({band}) "
              f"is {format_probability(probability)}. ")
+    hdi_text = f"The {mass:.0%} highest-density interval ({format_rho(hdi[0])} to {format_rho(hdi[1])})"
     if decision == "practically_zero":
-        return start + f"The whole {mass:.0%} HDI lies inside the band: the correlation is practically zero."
+        return start + f"{hdi_text} lies inside the band: the correlation is practically zero."
     if decision == "not_zero":
-        return start + f"The whole {mass:.0%} HDI lies outside the band: the correlation is not practically zero."
-    return start + f"The {mass:.0%} HDI overlaps the band's edge, so the data do not decide the question."
+        return start + f"{hdi_text} lies outside the band: the correlation is not practically zero."
+    return start + f"{hdi_text} overlaps the band's edge, so the data do not decide the question."
 
 
 def pair_paragraph(
@@ -122,13 +138,20 @@ def pair_paragraph(
         parts.append(f"The interval lies wholly on the {'positive' if lower > 0 else 'negative'} side of zero: "
                      f"a {strength} {direction} association by common benchmarks.")
     else:
-        parts.append("The interval includes zero, so the data are consistent with no linear "
-                     "association as well as a modest one in either direction.")
+        parts.append(f"The interval includes zero: the data are consistent with no linear association, "
+                     f"and equally with values from {describe(lower)} to {describe(upper)}.")
     parts.append(f"The probability that the correlation is positive is {format_probability(p_positive)}.")
     share = r2_median * 100
     parts.append(f"A straight line in {x_label} would account for about {share:.0f}% of the variation "
                  f"in {y_label} (posterior median of \u03c1\u00b2).")
     return " ".join(parts)
+
+
+def describe(rho: float) -> str:
+    """A value of rho in words, e.g. "a moderate negative correlation (−0.42)"."""
+    if abs(rho) < 0.1:
+        return f"a negligible correlation ({format_rho(rho)})"
+    return f"a {strength_word(rho)} {direction_word(rho)} correlation ({format_rho(rho)})"
 
 
 def diagnostics_sentence(status: str, reasons: tuple[str, ...]) -> str:
@@ -196,8 +219,9 @@ def evidence_sentence(log_bf10: float) -> str:
             grade = word
             break
     factor = format_bayes_factor(size)
-    return (f"The Bayes factor is {format_bayes_factor(log_bf10)}: the data are {factor} times as likely "
-            f"under {favoured} as under {other}, {grade} evidence on Jeffreys' grades.")
+    return (f"The Bayes factor BF\u2081\u2080 is {format_bayes_factor(log_bf10)}: the data are {factor} times as "
+            f"likely under {favoured} as under {other}, {grade} evidence on Jeffreys' grades (with Jeffreys' "
+            "priors for the means and SDs).")
 
 
 def crosscheck_sentence(*, applies: bool, reference_priors: bool, mean_gap: float, mean_allowed: float,
@@ -207,8 +231,8 @@ def crosscheck_sentence(*, applies: bool, reference_priors: bool, mean_gap: floa
                 "informative, so the two answers are not expected to agree.")
     basis = ("The spec uses the reference priors, so the two should agree within Monte Carlo error"
              if reference_priors else
-             "The spec's vague priors differ slightly from the reference priors, so the allowance adds a "
-             "quarter of the posterior SD to the Monte Carlo error")
+             "The spec's vague priors differ slightly from the reference priors, so the allowance adds the "
+             "effect of shifting the posterior by a quarter of its SD to the Monte Carlo error")
     parts = [f"The sampler's posterior mean of \u03c1 differs from the exact reference by {signed(mean_gap)} "
              f"(allowed {mean_allowed:.4f})"]
     if rule_name is not None:

@@ -7,6 +7,7 @@ from __future__ import annotations
 from typing import Any
 
 from reportgen import interpret
+from reportgen.crosscheck import MCSE_MULTIPLE, VAGUE_PRIOR_ALLOWANCE_SD
 from reportgen.results import RunResults
 from reportgen.spec import Priors, Spec
 
@@ -66,7 +67,8 @@ def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
         "thresholds": [
             ("R-hat (rank-normalised, split)", f"below {thresholds.rhat_max:g}", "fail"),
             ("Bulk and tail ESS", f"at least {thresholds.ess_min:g}", "fail"),
-            ("Divergent transitions", f"at most {thresholds.max_divergences}", "fail"),
+            ("Divergent transitions", "none allowed" if thresholds.max_divergences == 0
+             else f"at most {thresholds.max_divergences}", "fail"),
             ("E-BFMI (lowest chain)", f"at least {thresholds.bfmi_min:g}", "warn"),
         ],
         "interval": (
@@ -77,6 +79,13 @@ def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
         ),
         "n_pairs": len(results.pairs),
         "engine": document.engine,
+        "mcse_multiple": f"{MCSE_MULTIPLE:g}",
+        "prior_allowance": f"{VAGUE_PRIOR_ALLOWANCE_SD:g}",
+        "probability_note": (
+            "Probabilities come from the exact posterior by quadrature; values beyond 0.999 or below 0.001 "
+            "are shown as such." if document.engine == "exact" else
+            "Probabilities are shares of the posterior draws, so values beyond 0.999 or below 0.001 are shown "
+            "as such."),
     }
 
 
@@ -123,7 +132,9 @@ def record_rows(reproducible: dict[str, Any]) -> list[tuple[str, str]]:
         ("Data rows", f"{reproducible['data_rows']:,}"),
         ("Engine", reproducible["engine"]),
         ("Sampler", f"{sampler['chains']} chains \u00d7 {sampler['draws']:,} draws after {sampler['tune']:,} "
-                    f"tuning; target acceptance {sampler['target_accept']}; {sampler['cores']} worker thread(s)"),
+                    f"tuning; target acceptance {sampler['target_accept']}"),
+        ("Command-line overrides", ", ".join(f"{k} = {v}" for k, v in reproducible["command_line_overrides"].items())
+         or "none (the spec file below was run as written)"),
         ("Master seed", str(reproducible["master_seed"])),
         ("Pair seeds", reproducible["seed_derivation"]),
         ("Platform", f"{platform['system']} {platform['machine']}, {platform['python_implementation']}, "
@@ -137,7 +148,7 @@ def record_pair_rows(reproducible: dict[str, Any]) -> list[dict[str, str]]:
         "pair": row["pair"],
         "rows_used": f"{row['rows_used']:,}",
         "rows_dropped": f"{row['rows_dropped']:,}",
-        "seed": str(row["seed"]),
+        "seed": "\u2014" if row["seed"] is None else str(row["seed"]),
         "rhat_max": "\u2014" if row["rhat_max"] is None else f"{row['rhat_max']:.3f}",
         "ess_bulk_min": "\u2014" if row["ess_bulk_min"] is None else f"{row['ess_bulk_min']:,.0f}",
         "ess_tail_min": "\u2014" if row["ess_tail_min"] is None else f"{row['ess_tail_min']:,.0f}",

@@ -108,7 +108,7 @@ def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, st
         data.x, data.y, mean=result.mean_vector, cov=result.covariance,
         x_label=result.x_label + _unit_suffix(result.x_unit),
         y_label=result.y_label + _unit_suffix(result.y_unit),
-        seed=result.seed,
+        seed=result.seed if result.seed is not None else 0,  # only picks which points a large scatter shows
     )
     prior_on_grid = np.interp(rho.grid, result.prior_grid, result.prior_density)
     check = result.crosscheck
@@ -147,7 +147,7 @@ def matrix_figures(results: RunResults, spec: Spec) -> list[dict[str, str]]:
             i, j = columns.index(result.x), columns.index(result.y)
             i, j = max(i, j), min(i, j)
             medians[i, j] = result.rho.median
-            excludes[i, j] = result.rho.lower > 0 or result.rho.upper < 0
+            excludes[i, j] = result.interval_excludes_zero
         labels = [spec.display_name(c) for c in columns]
         svg = figures.correlation_matrix(labels, medians, excludes)
         out.append({"name": pair_set.name, "figure": svg_data_uri(svg)})
@@ -206,13 +206,13 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
             "name": rule.name,
             "statement": rule.statement,
             "probability": interpret.format_probability(rule.probability),
-            "required": f"{rule.required:.2f}",
+            "required": interpret.format_required(rule.required),
             "verdict": rule.verdict,
             "sentence": rule.sentence,
         } for rule in result.rules],
         "parameter_rows": rows,
         "reference": {
-            "r": f"{ref.r:.3f}",
+            "r": interpret.format_number(round(ref.r, 3), 3) if abs(ref.r) >= 0.001 else "0.000",
             "interval": f"{_rho(ref.ci_lower)} to {_rho(ref.ci_upper)}",
             "p_value": "< 0.0001" if ref.p_value < 1e-4 else f"{ref.p_value:.4f}",
             "mass": f"{mass:.0%}",
@@ -220,9 +220,11 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "status": result.status,
         "bf10": interpret.format_bayes_factor(result.crosscheck.log_bf10),
         "evidence_sentence": result.evidence_sentence,
-        "savage_dickey": ("not estimable (the posterior has almost no mass at \u03c1 = 0)"
+        "savage_dickey": ("cannot be estimated here, because the posterior has almost no mass at \u03c1 = 0 "
+                          "(or the spec's priors are not close to Jeffreys')"
                           if not np.isfinite(result.crosscheck.savage_dickey_bf10)
-                          else interpret.format_bayes_factor(float(np.log(result.crosscheck.savage_dickey_bf10)))),
+                          else "gives " + interpret.format_bayes_factor(
+                              float(np.log(result.crosscheck.savage_dickey_bf10)))),
         "exact": {
             "applies": result.crosscheck.applies,
             "mean": _rho(result.crosscheck.exact_mean),
@@ -232,14 +234,17 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "diagnostics_sentence": result.diagnostics_sentence,
         "divergences": f"{diag.divergences:,} of {diag.total_draws:,}",
         "bfmi": "n/a" if not np.isfinite(diag.bfmi_min) else f"{diag.bfmi_min:.2f}",
-        "seed": str(result.seed),
+        "seed": "\u2014" if result.seed is None else str(result.seed),
         "figures": figs,
     }
 
 
 def _anchor(key: str) -> str:
-    safe = "".join(ch if ch.isalnum() else "-" for ch in key.lower())
-    return "pair-" + safe.strip("-")[:60]
+    """A link target unique per pair: a readable part plus a short hash of the exact key."""
+    import hashlib
+
+    safe = "".join(ch if ch.isalnum() else "-" for ch in key.lower()).strip("-")[:50]
+    return f"pair-{safe}-{hashlib.sha256(key.encode()).hexdigest()[:8]}"
 
 
 @dataclass(frozen=True)
@@ -298,10 +303,10 @@ def build_context(
         "rules": [{
             "name": rule.name,
             "statement": interpret.rule_statement(rule),
-            "required": f"{rule.required_probability:.2f}",
+            "required": interpret.format_required(rule.required_probability),
             "description": rule.description or rule.name.replace("_", " "),
         } for rule in document.rules],
-        "rope": f"{_rho(document.rope.lower)} to {_rho(document.rope.upper)}",
+        "rope": " to ".join(interpret.format_threshold(v) for v in (document.rope.lower, document.rope.upper)),
         "summary_rows": [{
             "anchor": p["anchor"], "title": p["title"], "n": p["n"], "median": p["median"],
             "interval": p["interval"], "p_positive": p["p_positive"], "rules": p["rules"],
@@ -330,7 +335,17 @@ def build_context(
 
 
 def render_html(context: dict[str, Any], user_templates: Path | None = None) -> str:
-    return environment(user_templates).get_template("report.html.j2").render(**context)
+    """The report's HTML; a broken user template is the user's error, reported in one line."""
+    from jinja2 import TemplateError
+
+    try:
+        return environment(user_templates).get_template("report.html.j2").render(**context)
+    except (TemplateError, RecursionError) as exc:
+        if user_templates is None:
+            raise
+        detail = " ".join(str(exc).split())[:160] or type(exc).__name__
+        raise ReportAssetError(f"{user_templates}: a template in report.templates failed ({detail}); "
+                               "fix it or remove it to use the shipped one") from None
 
 
 def _font_css() -> tuple[str, dict[str, Path]]:

@@ -12,9 +12,10 @@ from reportgen import exact, interpret, summaries
 from reportgen.crosscheck import CrossCheck, cross_check, exact_only_check, exact_rule_probability
 from reportgen.data import PairData
 from reportgen.diagnostics import NOT_SAMPLED, STATUS_ORDER, Diagnosis, diagnose
-from reportgen.fit import PARAMETERS, PairFit
+from reportgen.fit import PARAMETERS, PairFit, derive_seed
 from reportgen.spec import Spec
 
+R_LIMIT = 1.0 - 1e-9  # the exact engine's domain; the data stage refuses |r| this close to 1
 PARAMETER_BOUNDS = {"rho": (-1.0, 1.0), "sigma_x": (0.0, None), "sigma_y": (0.0, None)}
 
 
@@ -53,7 +54,7 @@ class PairResult:
     pair_set: str
     n: int
     n_dropped: int
-    seed: int
+    seed: int | None  # None: no sampler was run (exact engine)
     seconds: float
     reference: summaries.PearsonReference
     parameters: dict[str, ParameterSummary]
@@ -75,6 +76,8 @@ class PairResult:
     evidence_sentence: str
     crosscheck_sentence: str
     engine: str  # "mcmc" or "exact"
+    sufficient: tuple[tuple[str, float], ...]  # n, means, centred sums: every number derives from these
+    interval_excludes_zero: bool
 
     @property
     def rho(self) -> ParameterSummary:
@@ -181,7 +184,7 @@ def pair_result_exact(spec: Spec, data: PairData, sampler_failure: str = "") -> 
     document = spec.document
     mass = document.summary.credible_mass
     a, b = data.pair.priors.rho.shapes
-    r = float(np.clip(data.stats.sample_r, -0.999999, 0.999999))
+    r = float(np.clip(data.stats.sample_r, -R_LIMIT, R_LIMIT))
     posterior = exact.exact_posterior(data.stats.n, r, a, b)
     tail = (1.0 - mass) / 2.0
     hdi = tuple(float(v) for v in posterior.hdi(mass))
@@ -208,7 +211,8 @@ def pair_result_exact(spec: Spec, data: PairData, sampler_failure: str = "") -> 
         spec, data, engine="exact", parameters={"rho": rho}, hdi=(hdi[0], hdi[1]),
         p_positive=float(posterior.prob_above(0.0)), r2_median=0.5 * (low + high),
         rope_probability=float(posterior.prob_between(document.rope.lower, document.rope.upper)),
-        rules=_rule_outcomes(spec, probabilities), diagnosis=diagnosis, check=check, seed=0,
+        rules=_rule_outcomes(spec, probabilities), diagnosis=diagnosis, check=check,
+        seed=derive_seed(document.sampler.seed, data.pair.x, data.pair.y) if sampler_failure else None,
         seconds=time.perf_counter() - started, covariance=covariance,
         mean_vector=(data.stats.mean_x, data.stats.mean_y),
     )
@@ -217,7 +221,7 @@ def pair_result_exact(spec: Spec, data: PairData, sampler_failure: str = "") -> 
 def _assemble(
     spec: Spec, data: PairData, *, engine: str, parameters: dict[str, ParameterSummary],
     hdi: tuple[float, float], p_positive: float, r2_median: float, rope_probability: float,
-    rules: tuple[RuleOutcome, ...], diagnosis: Diagnosis, check: CrossCheck, seed: int, seconds: float,
+    rules: tuple[RuleOutcome, ...], diagnosis: Diagnosis, check: CrossCheck, seed: int | None, seconds: float,
     covariance: np.ndarray, mean_vector: tuple[float, float],
 ) -> PairResult:
     document = spec.document
@@ -253,7 +257,7 @@ def _assemble(
         reference=summaries.pearson_reference(data.stats.n, data.stats.sample_r, mass),
         parameters=parameters, hdi=hdi, p_positive=p_positive, r2_median=r2_median,
         rope_probability=rope_probability, rope_decision=rope_decision,
-        rope_sentence=interpret.rope_sentence(document.rope, rope_probability, rope_decision, mass),
+        rope_sentence=interpret.rope_sentence(document.rope, rope_probability, rope_decision, mass, hdi),
         rules=rules, diagnosis=diagnosis,
         paragraph=interpret.pair_paragraph(
             x_label=x_label, y_label=y_label, n=data.stats.n, n_dropped=data.n_dropped,
@@ -265,6 +269,8 @@ def _assemble(
         covariance=covariance, mean_vector=mean_vector, crosscheck=check,
         evidence_sentence=interpret.evidence_sentence(check.log_bf10),
         crosscheck_sentence=check_sentence, engine=engine,
+        sufficient=tuple((k, float(getattr(data.stats, k))) for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")),
+        interval_excludes_zero=rho.lower > 0 or rho.upper < 0,
     )
 
 
@@ -293,7 +299,7 @@ def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
               (f"{d.rhat_max:.4f}", f"{d.ess_bulk_min:.0f}", f"{d.ess_tail_min:.0f}")), d.divergences,
             pair.status, repr(pair.p_positive), repr(pair.rope_probability), pair.rope_decision,
             interval_text, repr(pair.reference.ci_lower), repr(pair.reference.ci_upper),
-            repr(pair.reference.p_value), pair.seed, "; ".join(d.reasons),
+            repr(pair.reference.p_value), "" if pair.seed is None else pair.seed, "; ".join(d.reasons),
             repr(pair.crosscheck.exact_mean), repr(pair.crosscheck.exact_sd), repr(pair.crosscheck.mean_gap),
             repr(pair.crosscheck.log_bf10), repr(pair.crosscheck.savage_dickey_bf10), pair.engine,
             *[repr(rule.probability) for rule in pair.rules],

@@ -9,6 +9,7 @@ or interrupted run leaves earlier outputs untouched and no half-written file.
 from __future__ import annotations
 
 import csv
+import hashlib
 import io
 import json
 import logging
@@ -21,6 +22,7 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from reportgen import report
 from reportgen.data import PairData, Table, load_pairs, load_table
@@ -73,6 +75,13 @@ def check_output_folder(out_dir: Path, prepared: Prepared) -> None:
         if (out_dir / name).resolve() in protected:
             raise OutputError(f"{out_dir}: writing {name} there would overwrite an input file; "
                               "choose another --out folder")
+        if (out_dir / name).is_dir():
+            raise OutputError(f"{out_dir / name}: is a folder, so the report's {name} cannot be written there; "
+                              "move it or choose another --out folder")
+    draws_path = out_dir / DRAWS_FOLDER
+    if draws_path.exists() and not draws_path.is_dir():
+        raise OutputError(f"{draws_path}: is a file, but reportgen writes a {DRAWS_FOLDER}/ folder there; "
+                          "move it or choose another --out folder")
     draws = (out_dir / DRAWS_FOLDER).resolve()
     if any(draws in path.parents for path in protected):
         raise OutputError(f"{out_dir}: the {DRAWS_FOLDER}/ folder it replaces holds an input file; "
@@ -80,8 +89,9 @@ def check_output_folder(out_dir: Path, prepared: Prepared) -> None:
 
 
 def safe_file_stem(key: str) -> str:
-    cleaned = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in key)
-    return cleaned.strip("_")[:120] or "pair"
+    """A file name unique per pair: columns "a b" and "a_b" must not share a draws file."""
+    cleaned = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in key).strip("_")[:100] or "pair"
+    return f"{cleaned}-{hashlib.sha256(key.encode()).hexdigest()[:8]}"
 
 
 def fit_all(
@@ -144,18 +154,27 @@ def staging_folder(out_dir: Path) -> Iterator[Path]:
 
 
 def publish(staging: Path, out_dir: Path) -> None:
-    """Move the finished files into ``out_dir``, each by an atomic rename."""
-    out_dir.mkdir(parents=True, exist_ok=True)
-    draws_target = out_dir / DRAWS_FOLDER
-    if (staging / DRAWS_FOLDER).exists():
+    """Move the finished files into ``out_dir``, each by an atomic rename.
+
+    Every file is complete before the first rename, so a reader never sees a half-written
+    file; a previous run's draws/ that this run does not replace (exact engine) is removed
+    so the folder never mixes two runs' draws.
+    """
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        draws_target = out_dir / DRAWS_FOLDER
         old = out_dir / f".{DRAWS_FOLDER}.old"
         if draws_target.exists():
             shutil.rmtree(old, ignore_errors=True)
             os.replace(draws_target, old)
-        os.replace(staging / DRAWS_FOLDER, draws_target)
+        if (staging / DRAWS_FOLDER).exists():
+            os.replace(staging / DRAWS_FOLDER, draws_target)
         shutil.rmtree(old, ignore_errors=True)
-    for name in OUTPUT_FILES:
-        os.replace(staging / name, out_dir / name)
+        for name in OUTPUT_FILES:
+            os.replace(staging / name, out_dir / name)
+    except OSError as exc:
+        raise OutputError(f"{out_dir}: could not write the outputs ({exc.strerror or exc}); "
+                          "check the folder's permissions and free space") from None
 
 
 def run(
@@ -184,17 +203,28 @@ def run(
     html = report.render_html(context, user_templates)
     pdf, refused = report.render_pdf(html, context["meta"]["date"])
     with staging_folder(out_dir) as staging:
-        (staging / "report.html").write_text(html, encoding="utf-8")
-        (staging / "report.pdf").write_bytes(pdf)
-        (staging / "results.csv").write_text(results_csv(results), encoding="utf-8")
-        (staging / "record.json").write_text(json.dumps(record, indent=2, ensure_ascii=False) + "\n",
-                                             encoding="utf-8")
-        draws_dir = staging / DRAWS_FOLDER
-        if fits:
-            draws_dir.mkdir()
-        for key, fit in fits.items():
-            fit.inference_data.to_netcdf(str(draws_dir / f"{safe_file_stem(key)}.nc"), engine="h5netcdf")
+        try:
+            write_outputs(staging, html, pdf, results, record, fits)
+        except OSError as exc:
+            raise OutputError(f"{out_dir}: could not write the outputs ({exc.strerror or exc}); "
+                              "check free space") from None
         publish(staging, out_dir)
     if progress:
         progress("done", len(prepared.pairs), len(prepared.pairs))
     return RunOutcome(out_dir=out_dir, results=results, refused_urls=refused)
+
+
+def write_outputs(staging: Path, html: str, pdf: bytes, results: RunResults, record: dict[str, Any],
+                  fits: dict[str, PairFit]) -> None:
+    """Write every output into ``staging``; record.json also gets the SHA-256 of the others."""
+    csv_text = results_csv(results)
+    files = {"report.html": html.encode("utf-8"), "report.pdf": pdf, "results.csv": csv_text.encode("utf-8")}
+    record["reproducible"]["outputs_sha256"] = {name: hashlib.sha256(data).hexdigest() for name, data in files.items()}
+    for name, data in files.items():
+        (staging / name).write_bytes(data)
+    (staging / "record.json").write_text(json.dumps(record, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
+    if fits:
+        draws_dir = staging / DRAWS_FOLDER
+        draws_dir.mkdir()
+        for key, fit in fits.items():
+            fit.inference_data.to_netcdf(str(draws_dir / f"{safe_file_stem(key)}.nc"), engine="h5netcdf")

@@ -279,6 +279,7 @@ class Spec(_Frozen):
     source_sha256: str
     source_text: str
     pairs: tuple[PairSpec, ...]
+    overrides: tuple[tuple[str, str], ...] = ()  # command-line settings that replace the file's
 
     @property
     def base_dir(self) -> Path:
@@ -594,7 +595,8 @@ def with_engine(spec: Spec, engine: str | None) -> Spec:
     """A copy of ``spec`` using ``engine`` ("mcmc" or "exact") when one is given."""
     if engine is None or engine == spec.document.engine:
         return spec
-    return spec.model_copy(update={"document": spec.document.model_copy(update={"engine": engine})})
+    return spec.model_copy(update={"document": spec.document.model_copy(update={"engine": engine}),
+                                   "overrides": (*spec.overrides, ("engine", engine))})
 
 
 def with_sampler_overrides(spec: Spec, **overrides: int | None) -> Spec:
@@ -611,4 +613,5 @@ def with_sampler_overrides(spec: Spec, **overrides: int | None) -> Spec:
         problem = describe_problem(first, ("sampler", *location))
         raise SpecError(f"--{format_location(location)}: {problem}") from None
     document = spec.document.model_copy(update={"sampler": sampler})
-    return spec.model_copy(update={"document": document})
+    noted = tuple((f"sampler.{key}", str(value)) for key, value in chosen.items())
+    return spec.model_copy(update={"document": document, "overrides": (*spec.overrides, *noted)})

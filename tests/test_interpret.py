@@ -26,7 +26,7 @@ def test_negative_correlations_use_a_true_minus_sign() -> None:
 def test_rule_sentence_states_probability_requirement_and_verdict() -> None:
     rule = Rule(name="material", statement="above", threshold=0.3, required_probability=0.9)
     met = interpret.rule_sentence(rule, 0.95)
-    assert "ρ > 0.30" in met and "0.950" in met and "0.90" in met and met.endswith("so it is met.")
+    assert "ρ > 0.3 " in met and "0.950" in met and "at least 0.9," in met and met.endswith("so it is met.")
     unsettled = interpret.rule_sentence(rule, 0.5)
     assert "not met" in unsettled and "either way" in unsettled
     opposite = interpret.rule_sentence(rule, 0.02)
@@ -66,3 +66,31 @@ def test_every_report_carries_the_standard_cautions() -> None:
     for phrase in ("causation", "straight-line", "bivariate normal", "outliers", "client's choice",
                    "qualified review"):
         assert phrase in titles
+
+
+def test_the_clients_thresholds_are_printed_as_chosen() -> None:
+    """A threshold of 0.125 or a requirement of 0.999 must not be rounded in the report."""
+    rule = Rule(name="fine", statement="between", lower=-0.125, upper=0.125, required_probability=0.999)
+    assert interpret.rule_statement(rule) == "\u22120.125 < ρ < 0.125"
+    assert "at least 0.999," in interpret.rule_sentence(rule, 0.5)
+
+
+def test_zero_straddling_interval_names_both_ends() -> None:
+    text = interpret.pair_paragraph(x_label="A", y_label="B", n=30, n_dropped=0, median=0.4, lower=-0.05,
+                                    upper=0.85, mass=0.95, interval_name="credible interval",
+                                    p_positive=0.9, r2_median=0.16)
+    assert "a negligible correlation (\u22120.05)" in text and "a strong positive correlation (0.85)" in text
+
+
+def test_bayes_factor_grades_follow_jeffreys() -> None:
+    """Jeffreys (1961), Appendix B: grades at about 3, 10, 30 and 100."""
+    import math
+
+    assert "weak evidence" in interpret.evidence_sentence(math.log(2.0))
+    assert "moderate evidence" in interpret.evidence_sentence(math.log(5.0))
+    assert "strong evidence" in interpret.evidence_sentence(math.log(20.0))
+    assert "very strong evidence" in interpret.evidence_sentence(math.log(50.0))
+    assert "extreme evidence" in interpret.evidence_sentence(math.log(500.0))
+    assert "under no correlation" in interpret.evidence_sentence(-math.log(12.0)).split("as under")[0]
+    assert interpret.format_bayes_factor(math.log(1e35)) == "10\u00b3\u2075"
+    assert interpret.format_bayes_factor(math.log(0.25)) == "0.25"
