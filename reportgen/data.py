@@ -9,6 +9,11 @@ message names the file, the column and the row as the user sees them: the
 frame's index holds each row's line number in the CSV file (header = line 1,
 so a quoted value spanning lines counts from its first line), its row number
 on the Excel sheet, or its position (from 1) in a Parquet file.
+
+A CSV file larger than ``STREAM_THRESHOLD`` is not held: it is read row by
+row and only the columns the pairs need are kept, parsed to floats as they are
+read (``Table.parsed``), with the same rules, results and messages. A Parquet
+file is read for the needed columns only.
 """
 
 from __future__ import annotations
@@ -18,9 +23,12 @@ import csv
 import difflib
 import hashlib
 import io
+import operator
 import re
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
+from typing import BinaryIO
 
 import numpy as np
 import pandas as pd
@@ -39,6 +47,12 @@ MISSING_TOKENS = frozenset({"", "na", "n/a", "nan", "null", "-"})
 # |r| this close to 1 means one column is an exact linear function of the other.
 PERFECT_CORRELATION = 1.0 - 1e-12
 DECIMAL_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d+)+$|^[+-]?\d+,\d+$")
+# CSV files larger than this are streamed: only the needed columns are kept, parsed to floats as they are
+# read, so memory is 8 bytes per needed cell (plus one line number per row) instead of a string per cell.
+STREAM_THRESHOLD = 256 * 1024 * 1024
+# Text cells are parsed in blocks of this many rows, on both paths, so both give the same floats.
+CHUNK_ROWS = 1 << 16
+BLOCK_BYTES = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -76,13 +90,31 @@ class PairData:
 
 
 @dataclass(frozen=True)
+class ParsedColumn:
+    """A column already parsed to floats while the file was streamed, with what was wrong in it.
+
+    The problems are kept, not raised, so that they surface where and when the
+    text path reports them (``pair_data``), with the same message.
+    """
+
+    values: np.ndarray  # float64, NaN where a cell is missing
+    bad: tuple[tuple[int, str], ...] = ()  # the first three non-numeric cells: (line, cell as written)
+    n_bad: int = 0
+    infinite: tuple[int, str] | None = None  # the first infinite or out-of-range cell
+
+
+@dataclass(frozen=True)
 class Table:
+    """The data table. ``frame`` holds the cells, indexed by line or row number; for a streamed CSV
+    file it has no columns (only the index) and ``parsed`` holds the needed columns as floats."""
+
     path: Path
     sha256: str
     frame: pd.DataFrame
     encoding: str
     sheet: str
     delimiter: str = ""
+    parsed: dict[str, ParsedColumn] | None = None
 
     @property
     def n_rows(self) -> int:
@@ -131,31 +163,43 @@ def _line_of(data: bytes, offset: int) -> int:
     return data[:offset].count(b"\n") + 1
 
 
+def _utf16_error(path: Path) -> DataError:
+    return DataError(f"{path}: starts like UTF-16 text but is not valid UTF-16; re-save the file as UTF-8")
+
+
+def _nul_error(path: Path) -> DataError:
+    return DataError(f"{path}: does not look like a CSV text file (it holds NUL bytes); if it is an Excel "
+                     "or Parquet file give it a .xlsx or .parquet name, or set data.format in the spec")
+
+
+def _mixed_error(path: Path, line: int, byte: int) -> DataError:
+    return DataError(f"{path}: the file mixes text encodings: it is UTF-8 up to line {line}, which has the "
+                     f"byte 0x{byte:02X} that is not UTF-8; re-save the whole file as UTF-8")
+
+
 def _decode(path: Path, data: bytes) -> tuple[str, str]:
     """The encoding that decodes the whole file, and the text (without a byte-order mark).
 
     UTF-8 first (with or without a BOM), UTF-16 when it starts with a UTF-16
     BOM (Excel's "Unicode text"), then cp1252 and latin-1 for files that have
     no UTF-8 at all. A file that is UTF-8 in one place and not in another is
-    refused rather than guessed at.
+    refused rather than guessed at. ``_stream_encoding`` makes the same choice
+    block by block.
     """
     if data.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
         try:
             return "utf-16", data.decode("utf-16")
         except UnicodeDecodeError:
-            raise DataError(f"{path}: starts like UTF-16 text but is not valid UTF-16; "
-                            "re-save the file as UTF-8") from None
+            raise _utf16_error(path) from None
     if b"\x00" in data[:65536]:
-        raise DataError(f"{path}: does not look like a CSV text file (it holds NUL bytes); if it is an Excel "
-                        "or Parquet file give it a .xlsx or .parquet name, or set data.format in the spec")
+        raise _nul_error(path)
     encoding = "utf-8-sig" if data.startswith(codecs.BOM_UTF8) else "utf-8"
     try:
         return encoding, data.decode(encoding)
     except UnicodeDecodeError as exc:
-        if encoding == "utf-8-sig" or any(byte >= 0x80 for byte in data[: exc.start]):
-            raise DataError(f"{path}: the file mixes text encodings: it is UTF-8 up to line "
-                            f"{_line_of(data, exc.start)}, which has the byte 0x{data[exc.start]:02X} that is "
-                            "not UTF-8; re-save the whole file as UTF-8") from None
+        start = exc.start + (len(codecs.BOM_UTF8) if encoding == "utf-8-sig" else 0)  # offsets skip the BOM
+        if encoding == "utf-8-sig" or not data[:start].isascii():
+            raise _mixed_error(path, _line_of(data, start), data[start]) from None
     for fallback in CSV_ENCODINGS[1:]:
         try:
             return fallback, data.decode(fallback)
@@ -163,6 +207,64 @@ def _decode(path: Path, data: bytes) -> tuple[str, str]:
             continue
     raise DataError(f"{path}: could not decode the text (tried {', '.join(CSV_ENCODINGS)}); "
                     "re-save the file as UTF-8")  # pragma: no cover - latin-1 decodes every byte
+
+
+def _utf8_failure(blocks: Iterator[bytes]) -> tuple[int, int, bool] | None:
+    """Where the concatenated blocks stop being UTF-8: (line, byte, any non-ASCII byte before it), or None."""
+    carry = b""  # the start of a character cut by a block boundary
+    lines, high = 0, False
+    for block in blocks:
+        buffer = carry + block
+        try:
+            buffer.decode("utf-8")
+            valid, carry = len(buffer), b""
+        except UnicodeDecodeError as exc:
+            if exc.end != len(buffer) or exc.reason != "unexpected end of data":
+                head = buffer[: exc.start]
+                return lines + head.count(b"\n") + 1, buffer[exc.start], high or not head.isascii()
+            valid, carry = exc.start, buffer[exc.start:]
+        lines += buffer.count(b"\n", 0, valid)
+        high = high or not buffer[:valid].isascii()
+    return (lines + 1, carry[0], high) if carry else None  # the file ends inside a character
+
+
+def _blocks(handle: BinaryIO, first: bytes) -> Iterator[bytes]:
+    yield first
+    yield from iter(lambda: handle.read(BLOCK_BYTES), b"")
+
+
+def _stream_encoding(path: Path) -> str:
+    """The encoding ``_decode`` would choose, found block by block, with its errors, without holding the file."""
+    try:
+        with path.open("rb") as handle:
+            first = handle.read(max(BLOCK_BYTES, 65536))  # the NUL check looks at 64 KiB
+            if first.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+                decoder = codecs.getincrementaldecoder("utf-16")()
+                try:
+                    for block in _blocks(handle, first):
+                        decoder.decode(block)
+                    decoder.decode(b"", final=True)
+                except UnicodeDecodeError:
+                    raise _utf16_error(path) from None
+                return "utf-16"
+            if b"\x00" in first[:65536]:
+                raise _nul_error(path)
+            signed = first.startswith(codecs.BOM_UTF8)
+            failure = _utf8_failure(_blocks(handle, first))
+            if failure is None:
+                return "utf-8-sig" if signed else "utf-8"
+            line, byte, high = failure
+            if signed or high:
+                raise _mixed_error(path, line, byte)
+            handle.seek(0)
+            try:
+                for block in _blocks(handle, b""):
+                    block.decode(CSV_ENCODINGS[1])
+            except UnicodeDecodeError:
+                return CSV_ENCODINGS[2]  # latin-1 decodes every byte
+            return CSV_ENCODINGS[1]
+    except OSError as exc:
+        raise _unreadable(path, exc) from None
 
 
 def _header_delimiter(header: str) -> str:
@@ -229,12 +331,16 @@ def _header_names(cells: list[object], where: str, path: Path) -> list[str]:
     return names
 
 
+def _unreadable(path: Path, exc: OSError) -> DataError:
+    return DataError(f"{path}: the data file cannot be read ({exc.strerror or type(exc).__name__}); "
+                     "check its permissions")
+
+
 def _read_bytes(path: Path) -> bytes:
     try:
         return path.read_bytes()
     except OSError as exc:
-        raise DataError(f"{path}: the data file cannot be read ({exc.strerror or type(exc).__name__}); "
-                        "check its permissions") from None
+        raise _unreadable(path, exc) from None
 
 
 def _fit_row(path: Path, row: list[str], line: int, width: int, named: int, header_at: int,
@@ -254,43 +360,135 @@ def _fit_row(path: Path, row: list[str], line: int, width: int, named: int, head
                     f"and put double quotes around any value that contains a {name}")
 
 
+def _csv_rows(path: Path, lines: Iterable[str], delimiter: str) -> Iterator[tuple[int, list[str]]]:
+    """The header (its line number and the column names), then each data row, fitted to the header's width,
+    with the line it starts on (header = line 1, a quoted value spanning lines counts from its first line).
+    Yields nothing when every line is blank."""
+    reader = csv.reader(lines, delimiter=delimiter)
+    width = -1  # fields per row, once the header is read
+    named = 0  # fields up to the header's last named column: a shorter row is refused
+    header_at = previous = 0
+    try:
+        for row in reader:
+            start, previous = previous + 1, reader.line_num  # a quoted value may span lines
+            if len(row) == width:
+                yield start, row
+            elif _is_blank(row):
+                continue
+            elif width < 0:
+                names = _header_names(list(row), f"line {start}", path)
+                width = len(names)
+                named = max(i + 1 for i, cell in enumerate(row) if cell.strip() or i == 0)
+                header_at = start
+                yield start, names
+            else:
+                yield start, _fit_row(path, row, start, width, named, header_at, delimiter)
+    except csv.Error as exc:
+        raise DataError(f"{path}: line {reader.line_num} cannot be read as CSV ({exc}); check its quotes "
+                        "and characters") from None
+
+
+def _no_rows(path: Path) -> DataError:
+    return DataError(f"{path}: the table has a header but no data rows; add the data below the header")
+
+
+def _empty(path: Path) -> DataError:
+    return DataError(f"{path}: the file is empty; it needs a header row and data rows")
+
+
 def _read_csv(path: Path) -> tuple[pd.DataFrame, str, str]:
     """The table as text cells indexed by line number, with the encoding and delimiter used."""
     data = _read_bytes(path)
     encoding, text = _decode(path, data)
     if not text.strip():
-        raise DataError(f"{path}: the file is empty; it needs a header row and data rows")
+        raise _empty(path)
     delimiter = _delimiter(text)
-    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
-    names: list[str] = []
-    width = -1  # fields per row, once the header is read
-    named = 0  # fields up to the header's last named column: a shorter row is refused
-    header_at = previous = 0
-    rows: list[list[str]] = []
+    records = _csv_rows(path, io.StringIO(text, newline=""), delimiter)
+    names = next(records, (0, []))[1]
     lines: list[int] = []
-    try:
-        for row in reader:
-            start, previous = previous + 1, reader.line_num  # a quoted value may span lines
-            if len(row) == width:
-                rows.append(row)
-                lines.append(start)
-            elif _is_blank(row):
-                continue
-            elif not names:
-                names = _header_names(list(row), f"line {start}", path)
-                width = len(names)
-                named = max(i + 1 for i, cell in enumerate(row) if cell.strip() or i == 0)
-                header_at = start
-            else:
-                rows.append(_fit_row(path, row, start, width, named, header_at, delimiter))
-                lines.append(start)
-    except csv.Error as exc:
-        raise DataError(f"{path}: line {reader.line_num} cannot be read as CSV ({exc}); check its quotes "
-                        "and characters") from None
+    rows: list[list[str]] = []
+    for line, row in records:
+        lines.append(line)
+        rows.append(row)
     if not rows:
-        raise DataError(f"{path}: the table has a header but no data rows; add the data below the header")
+        raise _no_rows(path)
     frame = pd.DataFrame(rows, columns=names, index=pd.Index(lines, name="line"), dtype=object)
     return frame, encoding, delimiter
+
+
+class _ColumnParser:
+    """Collects one column's parsed blocks and the first of its problems, for a streamed file."""
+
+    def __init__(self) -> None:
+        self.blocks: list[np.ndarray] = []
+        self.bad: list[tuple[int, str]] = []
+        self.n_bad = 0
+        self.infinite: tuple[int, str] | None = None
+
+    def add(self, cells: list[str], lines: list[int]) -> None:
+        values, bad_mask = _parse_cells(pd.Series(cells, dtype=object))
+        self.blocks.append(values)
+        bad = np.flatnonzero(bad_mask)
+        self.n_bad += bad.size
+        self.bad.extend((lines[p], cells[p]) for p in bad[: max(0, 3 - len(self.bad))])
+        infinite = np.flatnonzero(np.isinf(values))
+        if self.infinite is None and infinite.size:
+            self.infinite = (lines[infinite[0]], cells[infinite[0]])
+
+    def result(self) -> ParsedColumn:
+        values = np.concatenate(self.blocks)
+        self.blocks.clear()
+        return ParsedColumn(values=values, bad=tuple(self.bad), n_bad=self.n_bad, infinite=self.infinite)
+
+
+def _stream_csv(path: Path, wanted: tuple[str, ...]) -> tuple[pd.DataFrame, list[str], dict[str, ParsedColumn],
+                                                             str, str]:
+    """A large CSV file read row by row: the line numbers, the column names, the wanted columns parsed to
+    floats (those the header has), the encoding and the delimiter. Refuses what ``_read_csv`` refuses, with
+    the same messages; problems in a column's cells are kept for ``pair_data`` to report, as it does for text
+    cells."""
+    encoding = _stream_encoding(path)
+    try:
+        with path.open(encoding=encoding, newline="") as handle:
+            delimiter = _delimiter(handle.read(65537))  # what _delimiter reads of the whole text
+        with path.open(encoding=encoding, newline="") as handle:
+            records = _csv_rows(path, handle, delimiter)
+            header = next(records, None)
+            if header is None:  # only blank rows: whitespace only, or blank quoted values
+                handle.seek(0)
+                if not any(block.strip() for block in iter(lambda: handle.read(BLOCK_BYTES), "")):
+                    raise _empty(path)
+                raise _no_rows(path)
+            names = header[1]
+            kept = [name for name in wanted if name in names]
+            getter = operator.itemgetter(*(names.index(name) for name in kept)) if kept else None
+            parsers = {name: _ColumnParser() for name in kept}
+            line_blocks: list[np.ndarray] = []
+            lines: list[int] = []
+            cells: list = []  # the kept cells of each row: a tuple, or one cell when one column is kept
+
+            def flush() -> None:
+                columns = [cells] if len(kept) == 1 else list(zip(*cells, strict=True))
+                for name, column in zip(kept, columns, strict=True):
+                    parsers[name].add(list(column), lines)
+                line_blocks.append(np.array(lines, dtype=np.int64))
+                lines.clear()
+                cells.clear()
+
+            for line, row in records:
+                lines.append(line)
+                if getter is not None:
+                    cells.append(getter(row))
+                if len(lines) == CHUNK_ROWS:
+                    flush()
+            if lines:
+                flush()
+    except OSError as exc:
+        raise _unreadable(path, exc) from None
+    if not line_blocks:
+        raise _no_rows(path)
+    frame = pd.DataFrame(index=pd.Index(np.concatenate(line_blocks), name="line"))
+    return frame, names, {name: parser.result() for name, parser in parsers.items()}, encoding, delimiter
 
 
 # ------------------------------------------------------------------ Excel, Parquet
@@ -337,18 +535,23 @@ def _read_excel(path: Path, sheet: str) -> tuple[pd.DataFrame, str]:
     return frame, chosen
 
 
-def _read_parquet(path: Path) -> pd.DataFrame:
+def _read_parquet(path: Path, wanted: tuple[str, ...]) -> tuple[pd.DataFrame, list[str]]:
+    """The wanted columns that the file has (only those are read), and the names of all its columns."""
+    import pyarrow.parquet as pq
+
     try:
-        frame = pd.read_parquet(path)
+        schema = pq.read_schema(path)
+        stored_index = (schema.pandas_metadata or {}).get("index_columns", [])
+        names = [name for name in schema.names if name not in stored_index]
+        frame = pd.read_parquet(path, columns=[name for name in wanted if name in names])
     except Exception as exc:  # pyarrow raises its own types for a broken file
         raise DataError(f"{path}: not a readable Parquet file ({type(exc).__name__}); export it again, or set "
                         "data.format if it is not Parquet") from None
     frame = frame.reset_index(drop=True)
-    names = [str(c) for c in frame.columns]
     _header_names(names, "the Parquet schema", path)
-    frame.columns = names
+    frame.columns = [str(c) for c in frame.columns]
     frame.index = pd.RangeIndex(1, len(frame) + 1, name="row")
-    return frame
+    return frame, names
 
 
 # ------------------------------------------------------------------------ columns
@@ -388,7 +591,8 @@ def _require_column(path: Path, available: list[str], column: str, where: str, r
 
 
 def load_table(spec: Spec) -> Table:
-    """Read the spec's data file as text cells; numeric parsing happens per column."""
+    """Read the spec's data file as text cells; numeric parsing happens per column. A CSV file larger than
+    ``STREAM_THRESHOLD`` bytes is streamed instead, keeping only the needed columns, already as floats."""
     source = spec.document.data
     try:
         path = spec.data_path
@@ -409,61 +613,87 @@ def load_table(spec: Spec) -> Table:
     if source.sheet and kind != "excel":
         raise DataError(f"{path}: data.sheet = {source.sheet!r} is set but the file is read as {kind}; "
                         "remove data.sheet or point data.path at the workbook")
-    if kind == "csv":
+    wanted = spec.columns_needed
+    parsed = None
+    if kind == "csv" and path.stat().st_size > STREAM_THRESHOLD:
+        frame, available, parsed, encoding, delimiter = _stream_csv(path, wanted)
+    elif kind == "csv":
         frame, encoding, delimiter = _read_csv(path)
+        available = list(frame.columns)
     elif kind == "excel":
         frame, sheet = _read_excel(path, source.sheet)
+        available = list(frame.columns)
     else:
-        frame = _read_parquet(path)
+        frame, available = _read_parquet(path, wanted)
     if len(frame) == 0:
-        raise DataError(f"{path}: the table has a header but no data rows; add the data below the header")
-    available = list(frame.columns)
+        raise _no_rows(path)
     for column in spec.document.variables:
         _require_column(path, available, column, f"variables.{column}")
+    kept = available
     if source.columns:
         for column in source.columns:
             _require_column(path, available, column, "data.columns")
-        frame = frame.loc[:, list(source.columns)]
-    for column in spec.columns_needed:
-        _require_column(path, list(frame.columns), column, _key_paths(spec, column), bool(source.columns))
+        kept = list(source.columns)
+    frame = frame.loc[:, [column for column in kept if column in frame.columns]]
+    for column in wanted:
+        _require_column(path, kept, column, _key_paths(spec, column), bool(source.columns))
     return Table(path=path, sha256=file_sha256(path), frame=frame, encoding=encoding, sheet=sheet,
-                 delimiter=delimiter)
+                 delimiter=delimiter, parsed=parsed)
 
 
-def _cells(raw: pd.Series, positions: np.ndarray) -> str:
-    return ", ".join(f"row {raw.index[p]} ({str(raw.iloc[p])[:20]!r})" for p in positions[:3])
+def _cells(cells: Iterable[tuple[object, object]]) -> str:
+    return ", ".join(f"row {row} ({str(cell)[:20]!r})" for row, cell in cells)
 
 
-def _numeric_column(path: Path, frame: pd.DataFrame, column: str) -> np.ndarray:
-    """The column as floats, NaN where a cell is missing; a cell that is not a number is an error."""
-    raw = frame[column]
-    if pd.api.types.is_numeric_dtype(raw) and not pd.api.types.is_complex_dtype(raw):
-        values = raw.to_numpy(dtype=float, na_value=np.nan).copy()
-        bad_mask = np.zeros(len(values), dtype=bool)
-    else:
-        text = raw.astype("string").str.strip()
+def _parse_cells(raw: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Cells as floats (NaN where missing), and where a cell is not a number.
+
+    Parsed in blocks of ``CHUNK_ROWS`` rows: pandas parses integers apart from
+    other numbers, so the blocks keep a streamed file's floats equal to these.
+    """
+    values, bad = [np.empty(0)], [np.zeros(0, dtype=bool)]
+    for start in range(0, len(raw), CHUNK_ROWS):
+        text = raw.iloc[start:start + CHUNK_ROWS].astype("string").str.strip()
         missing = (text.isna() | text.str.lower().isin(MISSING_TOKENS)).to_numpy(dtype=bool)
-        parsed = pd.to_numeric(text.mask(missing), errors="coerce")
-        values = parsed.to_numpy(dtype=float, na_value=np.nan).copy()
-        bad_mask = ~missing & np.isnan(values)
-    if bad_mask.any():
-        bad = np.flatnonzero(bad_mask)
-        more = f" and {bad.size - 3} more" if bad.size > 3 else ""
-        commas = all(DECIMAL_COMMA.match(str(raw.iloc[p]).strip()) for p in bad[:3])
+        parsed = pd.to_numeric(text.mask(missing), errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        values.append(parsed)
+        bad.append(~missing & np.isnan(parsed))
+    return np.concatenate(values), np.concatenate(bad)
+
+
+def _numeric_column(table: Table, column: str) -> np.ndarray:
+    """The column as floats, NaN where a cell is missing; a cell that is not a number is an error."""
+    if table.parsed is not None:
+        parsed = table.parsed[column]
+        values, bad, n_bad, infinite = parsed.values, parsed.bad, parsed.n_bad, parsed.infinite
+    else:
+        raw = table.frame[column]
+        if pd.api.types.is_numeric_dtype(raw) and not pd.api.types.is_complex_dtype(raw):
+            values = raw.to_numpy(dtype=float, na_value=np.nan).copy()
+            positions = np.zeros(0, dtype=int)
+        else:
+            values, bad_mask = _parse_cells(raw)
+            positions = np.flatnonzero(bad_mask)
+        bad = tuple((raw.index[p], raw.iloc[p]) for p in positions[:3])
+        n_bad = positions.size
+        first = np.flatnonzero(np.isinf(values))[:1]
+        infinite = (raw.index[first[0]], raw.iloc[first[0]]) if first.size else None
+    if n_bad:
+        more = f" and {n_bad - 3} more" if n_bad > 3 else ""
+        commas = all(DECIMAL_COMMA.match(str(cell).strip()) for _, cell in bad)
         fix = ("these look like numbers written with a comma; use a decimal point and no thousands separators"
                if commas else "fix or blank those cells")
-        raise DataError(f"{path}: column `{column}` has non-numeric values at {_cells(raw, bad)}{more}; {fix}")
-    infinite = np.flatnonzero(np.isinf(values))
-    if infinite.size:
-        raise DataError(f"{path}: column `{column}` has an infinite or out-of-range value at "
-                        f"{_cells(raw, infinite[:1])}; replace it with a finite number or leave it blank")
+        raise DataError(f"{table.path}: column `{column}` has non-numeric values at {_cells(bad)}{more}; {fix}")
+    if infinite is not None:
+        raise DataError(f"{table.path}: column `{column}` has an infinite or out-of-range value at "
+                        f"{_cells([infinite])}; replace it with a finite number or leave it blank")
     return values
 
 
 def pair_data(table: Table, pair: PairSpec, missing_policy: str) -> PairData:
     """Complete rows of one pair, checked for what cannot be fitted."""
-    x_all = _numeric_column(table.path, table.frame, pair.x)
-    y_all = _numeric_column(table.path, table.frame, pair.y)
+    x_all = _numeric_column(table, pair.x)
+    y_all = _numeric_column(table, pair.y)
     where = f"{table.path}: pair (`{pair.x}`, `{pair.y}`)"
     present = {}
     for name, values in ((pair.x, x_all), (pair.y, y_all)):
