@@ -212,7 +212,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         } for rule in result.rules],
         "parameter_rows": rows,
         "reference": {
-            "r": interpret.format_number(round(ref.r, 3), 3) if abs(ref.r) >= 0.001 else "0.000",
+            "r": f"{ref.r:.3f}".replace("-", "\u2212"),
             "interval": f"{_rho(ref.ci_lower)} to {_rho(ref.ci_upper)}",
             "p_value": "< 0.0001" if ref.p_value < 1e-4 else f"{ref.p_value:.4f}",
             "mass": f"{mass:.0%}",
