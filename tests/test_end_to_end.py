@@ -181,8 +181,9 @@ def test_pdf_renderer_refuses_files_and_network() -> None:
 
 
 def test_exact_engine_reports_the_quadrature_numbers(project: Path) -> None:
-    """`--engine exact`: rho's summaries are the exact marginal (Jeffreys 1961; Ly et al. 2018)
-    as computed by reportgen.exact, with no sampler and no draws folder."""
+    """`--engine exact`: a consistency check that the CSV carries reportgen.exact's numbers, with no
+    sampler and no draws folder (the engine itself is checked against independent integration in
+    test_exact.py)."""
     from reportgen.exact import exact_posterior
 
     out = project / "exact"

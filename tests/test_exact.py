@@ -417,7 +417,10 @@ def test_bayes_factor_matches_nested_quadrature(n: int, r: float, a: float, b: f
     ],
 )
 def test_savage_dickey_density_ratio(n: int, r: float, a: float, b: float) -> None:
-    """BF10 = prior(0) / posterior(0) (Dickey 1971), with the interpolated density."""
+    """BF10 = prior(0) / posterior(0) (Dickey 1971), with the interpolated density.
+
+    A consistency check of the interpolation and normalisation: both sides share one
+    quadrature. The independent Bayes-factor checks are the nested-quad tests above."""
     post = exact_posterior(n, r, a, b)
     prior0 = stretched_beta_pdf_scipy(0.0, a, b)
     log_ratio = math.log(prior0) - math.log(post.density_at(0.0))
