@@ -25,7 +25,7 @@ def direction_word(rho: float) -> str:
     return "positive" if rho > 0 else "negative" if rho < 0 else "no"
 
 
-def format_probability(p: float, draws: int | None = None) -> str:
+def format_probability(p: float) -> str:
     """Probabilities from draws are never shown as exactly 0 or 1."""
     if p >= 0.9995:
         return "> 0.999"

@@ -265,7 +265,7 @@ def _assemble(
             interval_name=interval_name, p_positive=p_positive, r2_median=r2_median,
         ),
         diagnostics_sentence=diagnostics_sentence,
-        prior_grid=prior_grid, prior_density=summaries.stretched_beta_pdf(prior_grid, a, b),
+        prior_grid=prior_grid, prior_density=np.exp(exact.log_stretched_beta_pdf(prior_grid, a, b)),
         covariance=covariance, mean_vector=mean_vector, crosscheck=check,
         evidence_sentence=interpret.evidence_sentence(check.log_bf10),
         crosscheck_sentence=check_sentence, engine=engine,

@@ -10,6 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats as sps
 
+from reportgen.exact import fisher_z_interval
 from reportgen.spec import Rope, Rule
 
 
@@ -94,11 +95,6 @@ def bounded_density(
     return grid, density
 
 
-def stretched_beta_pdf(rho: np.ndarray, a: float, b: float) -> np.ndarray:
-    """Density on [-1, 1] of 2 B - 1 with B ~ Beta(a, b)."""
-    return 0.5 * sps.beta.pdf((np.asarray(rho) + 1.0) / 2.0, a, b)
-
-
 @dataclass(frozen=True)
 class PearsonReference:
     """The frequentist reading beside the posterior."""
@@ -124,9 +120,7 @@ def pearson_reference(n: int, r: float, mass: float) -> PearsonReference:
         t = r * math.sqrt((n - 2) / (1.0 - r * r))
         p_value = float(2.0 * sps.t.sf(abs(t), n - 2))
     if n > 3 and abs(r) < 1.0:
-        z = math.atanh(r)
-        half = sps.norm.ppf(0.5 + mass / 2.0) / math.sqrt(n - 3)
-        lower, upper = math.tanh(z - half), math.tanh(z + half)
+        lower, upper = fisher_z_interval(n, r, mass)
     else:
         lower, upper = -1.0, 1.0
     return PearsonReference(r=r, p_value=p_value, ci_lower=lower, ci_upper=upper, mass=mass)

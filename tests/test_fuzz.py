@@ -34,7 +34,7 @@ from pydantic import BaseModel
 
 from reportgen.data import MIN_COMPLETE_ROWS, PERFECT_CORRELATION, load_pairs, load_table
 from reportgen.errors import DataError, SpecError
-from reportgen.spec import SpecDocument, expand_pairs, load_spec, parse_spec_text
+from reportgen.spec import SpecDocument, _as_model, expand_pairs, load_spec, parse_spec_text
 
 FUZZ = settings(max_examples=150, deadline=None, derandomize=True, database=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
@@ -146,16 +146,6 @@ JUNK = st.recursive(SCALARS, lambda inner: st.one_of(st.lists(inner, max_size=3)
                     max_leaves=6)
 
 
-def _model_inside(annotation: Any) -> type[BaseModel] | None:
-    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
-        return annotation
-    for arg in typing.get_args(annotation):
-        found = _model_inside(arg)
-        if found is not None:
-            return found
-    return None
-
-
 def _literals(annotation: Any) -> list[Any]:
     if typing.get_origin(annotation) is typing.Literal:
         return list(typing.get_args(annotation))
@@ -171,7 +161,7 @@ def _plain_types(annotation: Any) -> set[Any]:
 
 def field_values(annotation: Any) -> st.SearchStrategy[Any]:
     """Values shaped like the field (most of the time) or junk of any shape."""
-    model = _model_inside(annotation)
+    model = _as_model(annotation)
     origin = typing.get_origin(annotation)
     types = _plain_types(annotation)
     if model is not None:
@@ -252,7 +242,7 @@ def key_paths(model: type[BaseModel], prefix: tuple[Any, ...] = ()) -> list[tupl
     for name, field in model.model_fields.items():
         path = (*prefix, name)
         found.append((path, field.annotation))
-        inner = _model_inside(field.annotation)
+        inner = _as_model(field.annotation)
         if inner is None:
             continue
         origin = typing.get_origin(field.annotation)
