@@ -55,7 +55,7 @@ def bench_suffstat_step(datasets: list, draws: int, tune: int, chains: int) -> t
     import pymc as pm
 
     from reportgen.data import sufficient_stats
-    from reportgen.model import build_model, model_inputs
+    from reportgen.models.normal import build_model, model_inputs
     from reportgen.spec import Priors
 
     first = model_inputs(sufficient_stats(*datasets[0]), Priors())

@@ -26,7 +26,7 @@ import io
 import operator
 import re
 from collections.abc import Iterable, Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import BinaryIO
 
@@ -87,6 +87,16 @@ class PairData:
     n_rows: int
     n_dropped: int
     stats: SufficientStats
+    # each complete row's number in the input file as a reader sees it (CSV: line number with the
+    # header on line 1; Excel: sheet row; Parquet: 1, 2, ...); empty when the pair was built by hand
+    rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+
+    @property
+    def row_numbers(self) -> np.ndarray:
+        """Input row numbers of the complete rows (1, 2, ... when the pair was built without a file)."""
+        if self.rows.size == self.x.size:
+            return self.rows
+        return np.arange(1, self.x.size + 1, dtype=np.int64)
 
 
 @dataclass(frozen=True)
@@ -732,7 +742,8 @@ def pair_data(table: Table, pair: PairSpec, missing_policy: str) -> PairData:
     if not np.isfinite(r) or abs(r) >= PERFECT_CORRELATION:
         raise DataError(f"{where}: the columns are perfectly correlated (sample r = {r:+.6f}): one is an exact "
                         "linear function of the other, so there is nothing to estimate; pair other columns")
-    return PairData(pair=pair, x=x, y=y, n_rows=table.n_rows, n_dropped=n_dropped, stats=stats)
+    rows = np.asarray(table.frame.index, dtype=np.int64)[complete]
+    return PairData(pair=pair, x=x, y=y, n_rows=table.n_rows, n_dropped=n_dropped, stats=stats, rows=rows)
 
 
 def load_pairs(spec: Spec, table: Table) -> tuple[PairData, ...]:

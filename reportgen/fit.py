@@ -19,23 +19,27 @@ from typing import Any
 import numpy as np
 
 from reportgen.data import PairData
-from reportgen.model import ModelInputs, Standardisation, build_model, model_inputs, to_data_units
+from reportgen.models import SAMPLED, ModelInputs, Standardisation, to_data_units
+from reportgen.models import normal as normal_model
 from reportgen.spec import Sampler
 
-PARAMETERS = ("mu_x", "mu_y", "sigma_x", "sigma_y", "rho")
+PARAMETERS = normal_model.PARAMETERS
 
 # Compiled models live for the whole process: every Fitter (every spec run in this
 # process) reuses them. Keyed by model structure; the data are swapped per pair.
 _COMPILED: dict[str, Any] = {}
 
 
-def derive_seed(master_seed: int, x: str, y: str) -> int:
+def derive_seed(master_seed: int, x: str, y: str, model: str = "normal") -> int:
     """A pair's seed from the master seed and the pair's identity alone.
 
     Adding, removing or reordering pairs never changes another pair's draws
-    (numpy SeedSequence with a spawn key taken from the column names).
+    (numpy SeedSequence with a spawn key taken from the column names). A model
+    other than the normal one adds its name, so a pair's two fits draw
+    independently while the normal fit keeps the seed it always had.
     """
-    digest = hashlib.sha256(f"{x}\x1f{y}".encode()).digest()
+    identity = f"{x}\x1f{y}" if model == "normal" else f"{x}\x1f{y}\x1f{model}"
+    digest = hashlib.sha256(identity.encode()).digest()
     spawn_key = tuple(int.from_bytes(digest[i:i + 4], "little") for i in range(0, 16, 4))
     sequence = np.random.SeedSequence(entropy=master_seed, spawn_key=spawn_key)
     return int(sequence.generate_state(1, dtype=np.uint32)[0])
@@ -46,6 +50,7 @@ class PairFit:
     """Posterior draws of one pair in the data's units, shaped (chain, draw)."""
 
     key: str
+    model: str
     seed: int
     draws: dict[str, np.ndarray]
     diverging: np.ndarray
@@ -63,7 +68,7 @@ class Fitter:
         self.cores = cores or max(1, min(sampler.chains, os.cpu_count() or 1))
         self.compile_seconds: dict[str, float] = {}
 
-    def _compiled_for(self, inputs: ModelInputs) -> tuple[Any, float]:
+    def _compiled_for(self, inputs: ModelInputs, model: str) -> tuple[Any, float]:
         if inputs.structure in _COMPILED:
             return _COMPILED[inputs.structure], 0.0
         import nutpie
@@ -71,18 +76,20 @@ class Fitter:
         started = time.perf_counter()
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", UserWarning)
-            compiled = nutpie.compile_pymc_model(build_model(inputs))
+            compiled = nutpie.compile_pymc_model(SAMPLED[model].build_model(inputs))
         seconds = time.perf_counter() - started
         _COMPILED[inputs.structure] = compiled
         self.compile_seconds[inputs.structure] = seconds
         return compiled, seconds
 
-    def fit(self, pair: PairData, master_seed: int) -> PairFit:
+    def fit(self, pair: PairData, master_seed: int, model: str = "normal") -> PairFit:
+        """Sample one pair with one of the sampled models (``normal`` or ``student_t``)."""
         import nutpie
 
-        inputs = model_inputs(pair.stats, pair.pair.priors)
-        compiled, compile_seconds = self._compiled_for(inputs)
-        seed = derive_seed(master_seed, pair.pair.x, pair.pair.y)
+        definition = SAMPLED[model]
+        inputs = definition.inputs_for(pair)
+        compiled, compile_seconds = self._compiled_for(inputs, model)
+        seed = derive_seed(master_seed, pair.pair.x, pair.pair.y, model)
         started = time.perf_counter()
         with_data = compiled.with_data(**inputs.values)
         idata = nutpie.sample(
@@ -100,14 +107,17 @@ class Fitter:
         posterior = idata.posterior
         scale = Standardisation.of(pair.stats)
         draws = to_data_units(posterior["mu_z"].values, posterior["sigma_z"].values, scale)
-        draws["rho"] = posterior["rho"].values
-        for name in PARAMETERS:
+        for name in definition.PARAMETERS:
+            if name not in draws:
+                draws[name] = posterior[name].values
+        for name in definition.PARAMETERS:
             idata.posterior[name] = (("chain", "draw"), draws[name])
         stats = idata.sample_stats
         return PairFit(
             key=pair.pair.key,
+            model=model,
             seed=seed,
-            draws={name: np.asarray(draws[name], dtype=float) for name in PARAMETERS},
+            draws={name: np.asarray(draws[name], dtype=float) for name in definition.PARAMETERS},
             diverging=np.asarray(stats["diverging"].values, dtype=bool),
             energy=np.asarray(stats["energy"].values, dtype=float),
             inference_data=idata,

@@ -7,7 +7,8 @@ import pytest
 from scipy import stats
 
 from reportgen.data import sufficient_stats
-from reportgen.model import build_model, model_inputs, standardised_stats, suffstat_loglik, to_data_units
+from reportgen.models.base import to_data_units
+from reportgen.models.normal import build_model, model_inputs, standardised_stats, suffstat_loglik
 from reportgen.spec import MeanPrior, Priors, SdPrior
 
 

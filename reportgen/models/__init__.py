@@ -1,0 +1,21 @@
+"""Stage 3: the models a pair can be fitted with, behind one interface.
+
+A sampled model (``normal``, ``student_t``) is a module with ``NAME``, ``PARAMETERS``
+(in the data's units), ``inputs_for(pair)`` (the per-pair values fed to one compiled
+model) and ``build_model(inputs)`` (the PyMC model of one structure); the fit stage
+compiles each structure once and maps the standardised draws back to the data's units.
+The rank model has a one-dimensional posterior computed by quadrature
+(``rank.rank_posterior``) and needs no sampler. The exact reference of the normal
+model is ``reportgen.exact``.
+"""
+
+from __future__ import annotations
+
+from types import ModuleType
+
+from reportgen.models import normal, student_t
+from reportgen.models.base import ModelInputs, Standardisation, to_data_units
+
+SAMPLED: dict[str, ModuleType] = {normal.NAME: normal, student_t.NAME: student_t}
+
+__all__ = ["SAMPLED", "ModelInputs", "Standardisation", "normal", "student_t", "to_data_units"]
