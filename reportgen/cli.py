@@ -89,10 +89,10 @@ def _progress_printer() -> Callable[[str, int, int], None] | None:
     return update
 
 
-def _load(spec_path: Path, engine: str | None = None, **overrides: int | None) -> Any:
-    from reportgen.spec import load_spec, with_engine, with_sampler_overrides
+def _load(spec_path: Path, engine: str | None = None, model: str | None = None, **overrides: int | None) -> Any:
+    from reportgen.spec import load_spec, with_engine, with_model, with_sampler_overrides
 
-    return with_engine(with_sampler_overrides(load_spec(spec_path), **overrides), engine)
+    return with_model(with_engine(with_sampler_overrides(load_spec(spec_path), **overrides), engine), model)
 
 
 def _report_outcome(outcome: Any) -> None:
@@ -107,10 +107,10 @@ def _report_outcome(outcome: Any) -> None:
         click.echo(f"reportgen: {len(results.failed)} pair(s) failed the convergence checks: {names}", err=True)
 
 
-def _run(spec_path: Path, out: Path, engine: str | None, **overrides: int | None) -> None:
+def _run(spec_path: Path, out: Path, engine: str | None, model: str | None, **overrides: int | None) -> None:
     from reportgen.runner import run
 
-    spec = _load(spec_path, engine, **overrides)
+    spec = _load(spec_path, engine, model, **overrides)
     outcome = run(spec, out, command_line=sys.argv, progress=_progress_printer())
     _report_outcome(outcome)
     sys.exit(outcome.exit_code)
@@ -123,6 +123,10 @@ sampler_options = [
     click.option("--chains", type=int, default=None, help="Override sampler.chains."),
     click.option("--engine", type=click.Choice(["mcmc", "exact"]), default=None,
                  help="Override the spec's engine: mcmc (sampler) or exact (quadrature, rho only)."),
+    click.option("--model", type=click.Choice(["normal", "student_t", "rank", "auto"]), default=None,
+                 help="Fit every pair with this model: normal, student_t (robust to outlying rows), rank "
+                      "(Kendall's tau, for ordinal or tied data) or auto (normal and robust; the checks "
+                      "choose which leads)."),
 ]
 
 
@@ -137,9 +141,10 @@ def with_sampler_options(func: F) -> F:
 @click.option("--out", "out", type=click.Path(path_type=Path), required=True, help="Output folder.")
 @with_sampler_options
 @user_errors
-def run_command(spec_path: Path, out: Path, engine: str | None, **overrides: int | None) -> None:
+def run_command(spec_path: Path, out: Path, engine: str | None, model: str | None,
+                **overrides: int | None) -> None:
     """Fit every pair of SPEC and write the report, results and record to --out."""
-    _run(spec_path, out, engine, **overrides)
+    _run(spec_path, out, engine, model, **overrides)
 
 
 @main.command("check")
@@ -163,9 +168,9 @@ def check_command(spec_path: Path) -> None:
               show_default=True, help="Output folder.")
 @with_sampler_options
 @user_errors
-def demo_command(out: Path, engine: str | None, **overrides: int | None) -> None:
+def demo_command(out: Path, engine: str | None, model: str | None, **overrides: int | None) -> None:
     """Run the bundled demo (an invented river-monitoring survey)."""
-    _run(DEMO_SPEC, out, engine, **overrides)
+    _run(DEMO_SPEC, out, engine, model, **overrides)
 
 
 @main.command("init")

@@ -196,7 +196,9 @@ SUPERSCRIPT = str.maketrans("0123456789-.", "\u2070\u00b9\u00b2\u00b3\u2074\u207
 
 
 def format_bayes_factor(log_bf10: float) -> str:
-    """Plain below 1000 (and above 1/1000), else a power of ten with superscript digits."""
+    """Plain below 1000 (and above 1/1000), else a power of ten with superscript digits; a dash when unknown."""
+    if not math.isfinite(log_bf10):
+        return "\u2014"
     log10 = log_bf10 / math.log(10.0)
     if abs(log10) < 3:
         return f"{math.exp(log_bf10):.3g}"
@@ -208,8 +210,11 @@ def signed(value: float, digits: int = 4) -> str:
     return f"{value:+.{digits}f}".replace("-", "\u2212")
 
 
-def evidence_sentence(log_bf10: float) -> str:
+def evidence_sentence(log_bf10: float, model: str = "normal") -> str:
     """Plain reading of BF10 (a correlation under the spec's prior against rho = 0)."""
+    if not math.isfinite(log_bf10):
+        return ("No exact Bayes factor is available for the robust (Student-t) model: the exact one belongs to "
+                "the normal model.")
     size = abs(log_bf10)
     favoured = "a correlation" if log_bf10 > 0 else "no correlation (\u03c1 = 0)"
     other = "no correlation" if log_bf10 > 0 else "a correlation"
@@ -219,9 +224,10 @@ def evidence_sentence(log_bf10: float) -> str:
             grade = word
             break
     factor = format_bayes_factor(size)
+    basis = ("from the normal approximation to Kendall's statistic (van Doorn et al. 2018)" if model == "rank"
+             else "with Jeffreys' priors for the means and SDs")
     return (f"The Bayes factor BF\u2081\u2080 is {format_bayes_factor(log_bf10)}: the data are {factor} times as "
-            f"likely under {favoured} as under {other}, {grade} evidence on Jeffreys' grades (with Jeffreys' "
-            "priors for the means and SDs).")
+            f"likely under {favoured} as under {other}, {grade} evidence on Jeffreys' grades ({basis}).")
 
 
 def crosscheck_sentence(*, applies: bool, reference_priors: bool, mean_gap: float, mean_allowed: float,
@@ -247,3 +253,35 @@ def exact_engine_sentence() -> str:
     return ("These numbers come from the exact engine: the marginal posterior of \u03c1 under Jeffreys' "
             "priors for the means and SDs, computed by quadrature with no sampling, so they carry no Monte "
             "Carlo error. Only \u03c1 has a posterior here; the ellipses use the sample means and SDs.")
+
+
+def rank_model_sentence() -> str:
+    return ("These numbers come from the rank model: the posterior of Kendall's τ (van Doorn, Ly, Marsman & "
+            "Wagenmakers 2018), computed by quadrature with no sampling, and shown on Pearson's scale as "
+            "ρ = sin(πτ/2). Ranks ignore how far apart the values are, so single extreme rows "
+            "and monotone curves matter little; the ellipses use the sample means and SDs.")
+
+
+def no_reference_sentence() -> str:
+    return ("The robust (Student-t) model has no exact reference to compare with: the exact posterior is the "
+            "normal model's. Its numbers rest on the sampler's convergence checks alone.")
+
+
+def tails_sentence(nu_median: float, nu_lower: float, nu_upper: float) -> str:
+    """What the posterior of the Student-t degrees of freedom says about the tails, in words."""
+    span = f"(median {nu_median:.1f}; interval {nu_lower:.1f} to {nu_upper:.1f})"
+    if nu_upper < 10:
+        return (f"The degrees of freedom are small {span}: the data have clearly heavier tails than a normal "
+                "distribution, so rows far from the rest are common and the normal model would overweight them.")
+    if nu_median < 20:
+        return (f"The degrees of freedom are moderate {span}: the tails look somewhat heavier than normal, "
+                "though the data cannot rule out near-normal tails.")
+    return (f"The degrees of freedom are large {span}: the tails look close to those of a normal distribution, "
+            "so the robust and the normal model should agree.")
+
+
+def joined(parts: list[str]) -> str:
+    """"a", "a and b", "a, b and c"."""
+    if len(parts) <= 1:
+        return "".join(parts)
+    return ", ".join(parts[:-1]) + " and " + parts[-1]

@@ -78,6 +78,8 @@ def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
                else "they are equal-tailed, cutting off equal probability in each tail.")
         ),
         "n_pairs": len(results.pairs),
+        "models": sorted({pair.model for pair in spec.pairs}),
+        "checks": model_check_lines(spec),
         "engine": document.engine,
         "mcse_multiple": f"{MCSE_MULTIPLE:g}",
         "prior_allowance": f"{VAGUE_PRIOR_ALLOWANCE_SD:g}",
@@ -87,6 +89,23 @@ def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
             "Probabilities are shares of the posterior draws, so values beyond 0.999 or below 0.001 are shown "
             "as such."),
     }
+
+
+def model_check_lines(spec: Spec) -> list[tuple[str, str]]:
+    """The settings of the model checks, as label and value, for the methods section."""
+    checks = spec.document.checks
+    widths = spec.document.sensitivity.nuisance_widths
+    return [
+        ("Influential row", f"leaving it out alone moves the median of \u03c1 by more than {checks.influence_shift:g}, "
+                            "or changes a rule's verdict"),
+        ("Outlying row", f"squared Mahalanobis distance beyond the {checks.outlier_level:g} family-wise limit"),
+        ("Not bivariate normal", f"Mardia's skewness or kurtosis test below {checks.normality_level:g} "
+                                 "(Bonferroni-combined)"),
+        ("Coarse values", f"at most {checks.discrete_max_distinct} distinct values, or at least "
+                          f"{checks.discrete_tied_share:.0%} of all pairs of rows tied"),
+        ("Poorly reproduced", f"posterior predictive tail probability below {checks.predictive_level:g}"),
+        ("Nuisance prior widths tried", ", ".join(f"\u00d7{w:g}" for w in widths) or "none"),
+    ]
 
 
 def cautions() -> list[dict[str, str]]:
@@ -107,7 +126,8 @@ def cautions() -> list[dict[str, str]]:
         {"title": "Outliers and restricted ranges",
          "text": "A few extreme points can create or hide a correlation, and a sample that covers only "
                  "part of the range of a variable understates the correlation that a wider range would "
-                 "show. The scatter plots show both; a robust model is the next step when in doubt."},
+                 "show. Each pair's page lists the rows that alone move the result and the rows further out "
+                 "than the model allows; the checks cannot see a range that was never sampled."},
         {"title": "Decision thresholds are the client's choice",
          "text": "The thresholds, required probabilities and the band treated as practically zero were set "
                  "in the specification by the client or analyst, not by the method. A different choice can "

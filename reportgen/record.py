@@ -90,7 +90,7 @@ def build_record(
     spec: Spec,
     table: Table,
     results: RunResults,
-    fits: dict[str, PairFit],
+    fits: dict[str, tuple[PairFit, ...]],
     clock: RunClock,
     command_line: list[str],
     cores: int,
@@ -98,7 +98,9 @@ def build_record(
     document = spec.document
     pairs = []
     for pair in results.pairs:
-        fit = fits.get(pair.key)
+        by_model = {fit.model: fit for fit in fits.get(pair.key, ())}
+        fit = by_model.get("normal")
+        robust = by_model.get("student_t")
         d = pair.diagnosis
         pairs.append({
             "pair": pair.key,
@@ -107,8 +109,11 @@ def build_record(
             "rows_used": pair.n,
             "rows_dropped": pair.n_dropped,
             "sufficient_statistics": dict(pair.sufficient),
-            "seed": pair.seed,
+            "seed": fit.seed if fit else pair.seed,
             "draws_sha256": draws_sha256(fit) if fit else None,
+            "model": pair.model,
+            "robust_seed": robust.seed if robust else None,
+            "robust_draws_sha256": draws_sha256(robust) if robust else None,
             "status": d.status,
             "status_reasons": list(d.reasons),
             "rhat_max": _finite(d.rhat_max, 6),

@@ -29,8 +29,8 @@ from reportgen.data import PairData, Table, load_pairs, load_table
 from reportgen.errors import OutputError
 from reportgen.fit import Fitter, PairFit
 from reportgen.record import RunClock, build_record
-from reportgen.results import RunResults, pair_result, pair_result_exact, results_rows, run_results
-from reportgen.spec import Spec
+from reportgen.results import RunResults, pair_outcome, results_rows, run_results, sampled_models
+from reportgen.spec import Spec, check_engine_models
 
 LOGGER = logging.getLogger(__name__)
 OUTPUT_FILES = ("report.html", "report.pdf", "results.csv", "record.json")
@@ -59,6 +59,7 @@ class RunOutcome:
 
 def prepare(spec: Spec) -> Prepared:
     """Validate the data against the spec; raises our own errors, fits nothing."""
+    check_engine_models(spec)
     table = load_table(spec)
     pairs = load_pairs(spec, table)
     report.logo_data_uri(spec)  # a bad logo is refused now, not after the fits
@@ -99,26 +100,27 @@ def fit_all(
     fitter: Fitter,
     clock: RunClock,
     progress: ProgressCallback | None = None,
-) -> tuple[RunResults, dict[str, PairFit]]:
+) -> tuple[RunResults, dict[str, tuple[PairFit, ...]]]:
+    """Fit every pair with the models it needs; the second value holds each pair's fits by pair key."""
     spec = prepared.spec
-    fits: dict[str, PairFit] = {}
+    fits: dict[str, tuple[PairFit, ...]] = {}
     results = []
     total = len(prepared.pairs)
     for index, pair in enumerate(prepared.pairs):
         if progress:
             progress(pair.pair.key, index, total)
         started = time.perf_counter()
-        if spec.document.engine == "exact":
-            results.append(pair_result_exact(spec, pair))
-        else:
+        done: dict[str, PairFit] = {}
+        failures: dict[str, str] = {}
+        for model in sampled_models(spec.document.engine, pair.pair.model):
             try:
-                fit = fitter.fit(pair, spec.document.sampler.seed)
+                done[model] = fitter.fit(pair, spec.document.sampler.seed, model)
             except Exception as exc:  # one pair's sampler crashing must not sink the other pairs
-                LOGGER.warning("sampler failed for %s: %s", pair.pair.key, exc)
-                results.append(pair_result_exact(spec, pair, sampler_failure=_one_line(exc)))
-            else:
-                fits[pair.pair.key] = fit
-                results.append(pair_result(spec, pair, fit))
+                LOGGER.warning("sampler (%s model) failed for %s: %s", model, pair.pair.key, exc)
+                failures[model] = _one_line(exc)
+        if done:
+            fits[pair.pair.key] = tuple(done.values())
+        results.append(pair_outcome(spec, pair, done, failures))
         clock.pair_seconds[pair.pair.key] = time.perf_counter() - started
     clock.compile_seconds.update(fitter.compile_seconds)
     return run_results(spec, tuple(results)), fits
@@ -215,7 +217,7 @@ def run(
 
 
 def write_outputs(staging: Path, html: str, pdf: bytes, results: RunResults, record: dict[str, Any],
-                  fits: dict[str, PairFit]) -> None:
+                  fits: dict[str, tuple[PairFit, ...]]) -> None:
     """Write every output into ``staging``; record.json also gets the SHA-256 of the others."""
     csv_text = results_csv(results)
     files = {"report.html": html.encode("utf-8"), "report.pdf": pdf, "results.csv": csv_text.encode("utf-8")}
@@ -226,5 +228,7 @@ def write_outputs(staging: Path, html: str, pdf: bytes, results: RunResults, rec
     if fits:
         draws_dir = staging / DRAWS_FOLDER
         draws_dir.mkdir()
-        for key, fit in fits.items():
-            fit.inference_data.to_netcdf(str(draws_dir / f"{safe_file_stem(key)}.nc"), engine="h5netcdf")
+        for key, pair_fits in fits.items():
+            for fit in pair_fits:
+                name = safe_file_stem(key) + ("" if fit.model == "normal" else f"-{fit.model}")
+                fit.inference_data.to_netcdf(str(draws_dir / f"{name}.nc"), engine="h5netcdf")

@@ -151,17 +151,45 @@ class PriorOverrides(_Strict):
     sds: SdPrior | None = None
 
 
+ModelName = Literal["normal", "student_t", "rank", "auto"]
+
+
 class PairEntry(_Strict):
     x: Annotated[str, Field(min_length=1)]
     y: Annotated[str, Field(min_length=1)]
     label: str = ""
+    model: ModelName | None = None  # None: the spec-wide `model`
     priors: PriorOverrides = PriorOverrides()
 
 
 class PairSet(_Strict):
     name: Annotated[str, Field(min_length=1)]
     columns: Annotated[tuple[str, ...], Field(min_length=2, max_length=40)]
+    model: ModelName | None = None
     priors: PriorOverrides = PriorOverrides()
+
+
+class Checks(_Strict):
+    """How the data-driven checks of the model judge a pair."""
+
+    # a row whose removal alone moves rho's posterior median by more than this is flagged
+    influence_shift: Annotated[float, Field(gt=0, le=2)] = 0.1
+    # family-wise level of the Mahalanobis outlier test and of the normality test
+    outlier_level: Annotated[float, Field(gt=0, lt=1)] = 0.05
+    normality_level: Annotated[float, Field(gt=0, lt=1)] = 0.01
+    # a column with this many distinct values or fewer, or with this share of its pairs of rows tied,
+    # is called discrete (coarse)
+    discrete_max_distinct: Annotated[int, Field(ge=2, le=1000)] = 10
+    discrete_tied_share: Annotated[float, Field(gt=0, le=1)] = 0.1
+    # posterior predictive tail probability below which a statistic is called poorly reproduced
+    predictive_level: Annotated[float, Field(gt=0, lt=1)] = 0.01
+
+
+class Sensitivity(_Strict):
+    """The alternative priors a pair's verdicts are tried under; empty lists keep the standard set."""
+
+    rho_priors: tuple[RhoPrior, ...] = ()
+    nuisance_widths: tuple[Annotated[float, Field(gt=0, le=100)], ...] = (0.5, 2.0)
 
 
 class Rule(_Strict):
@@ -232,6 +260,7 @@ class SpecDocument(_Strict):
     """The spec exactly as written (after defaults)."""
 
     engine: Literal["mcmc", "exact"] = "mcmc"
+    model: ModelName = "normal"
     report: ReportMeta
     data: DataSource
     variables: dict[str, Variable] = {}
@@ -243,6 +272,8 @@ class SpecDocument(_Strict):
     summary: Summary = Summary()
     sampler: Sampler = Sampler()
     diagnostics: Diagnostics = Diagnostics()
+    checks: Checks = Checks()
+    sensitivity: Sensitivity = Sensitivity()
 
     @model_validator(mode="after")
     def _has_pairs(self) -> SpecDocument:
@@ -264,6 +295,7 @@ class PairSpec(_Frozen):
     label: str
     priors: Priors
     pair_set: str = ""
+    model: ModelName = "normal"
 
     @property
     def key(self) -> str:
@@ -333,7 +365,8 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
     seen: dict[frozenset[str], str] = {}
     prefix = f"{source}: " if source is not None else ""
 
-    def add(x: str, y: str, label: str, overrides: PriorOverrides, where: str, pair_set: str) -> None:
+    def add(x: str, y: str, label: str, overrides: PriorOverrides, where: str, pair_set: str,
+            model: str | None) -> None:
         if x == y:
             raise SpecError(f"{prefix}`{where}`: a pair needs two different columns, got `{x}` as both "
                             "x and y; change one of them")
@@ -343,17 +376,19 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
                             "remove one of them")
         seen[identity] = where
         merged = _merge_priors(document.priors, overrides)
-        pairs.append(PairSpec(x=x, y=y, label=label, priors=merged, pair_set=pair_set))
+        pairs.append(PairSpec(x=x, y=y, label=label, priors=merged, pair_set=pair_set,
+                              model=model or document.model))
 
     for index, entry in enumerate(document.pairs):
-        add(entry.x, entry.y, entry.label, entry.priors, f"pairs[{index}]", "")
+        add(entry.x, entry.y, entry.label, entry.priors, f"pairs[{index}]", "", entry.model)
     for index, pair_set in enumerate(document.pair_sets):
         repeated = sorted({c for c in pair_set.columns if pair_set.columns.count(c) > 1})
         if repeated:
             raise SpecError(f"{prefix}`pair_sets[{index}].columns`: `{repeated[0]}` is listed more than once; "
                             "list each column once")
         for x, y in itertools.combinations(pair_set.columns, 2):
-            add(x, y, "", pair_set.priors, f"pair_sets[{index}] ({pair_set.name})", pair_set.name)
+            add(x, y, "", pair_set.priors, f"pair_sets[{index}] ({pair_set.name})", pair_set.name,
+                pair_set.model)
     return tuple(pairs)
 
 
@@ -597,6 +632,27 @@ def with_engine(spec: Spec, engine: str | None) -> Spec:
         return spec
     return spec.model_copy(update={"document": spec.document.model_copy(update={"engine": engine}),
                                    "overrides": (*spec.overrides, ("engine", engine))})
+
+
+def check_engine_models(spec: Spec) -> None:
+    """The exact engine computes only the normal model's rho: a Student-t fit needs the sampler."""
+    if spec.document.engine != "exact":
+        return
+    for pair in spec.pairs:
+        if pair.model == "student_t":
+            raise SpecError(f"{spec.source_path}: pair ({pair.x}, {pair.y}) asks for model = \"student_t\", "
+                            "which needs the sampler, but engine = \"exact\"; set engine = \"mcmc\", or "
+                            "model = \"auto\" (with the exact engine its robust fit is the rank model)")
+
+
+def with_model(spec: Spec, model: str | None) -> Spec:
+    """A copy of ``spec`` fitting every pair with ``model`` (the command line's ``--model``)."""
+    if model is None:
+        return spec
+    document = spec.document.model_copy(update={"model": model})
+    pairs = tuple(pair.model_copy(update={"model": model}) for pair in spec.pairs)
+    return spec.model_copy(update={"document": document, "pairs": pairs,
+                                   "overrides": (*spec.overrides, ("model", model))})
 
 
 def with_sampler_overrides(spec: Spec, **overrides: int | None) -> Spec:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-from reportgen.spec import Diagnostics, MeanPrior, RhoPrior, Rope, Sampler, SdPrior, Summary
+from reportgen.spec import Checks, Diagnostics, MeanPrior, RhoPrior, Rope, Sampler, SdPrior, Summary
 
 
 def _toml_string(value: str) -> str:
@@ -14,9 +14,10 @@ def _toml_string(value: str) -> str:
 
 def starter_spec(data_path: str, pairs: list[tuple[str, str]], title: str = "Correlation report") -> str:
     rho, means, sds = RhoPrior(), MeanPrior(), SdPrior()
-    rope, summary, sampler, diagnostics = Rope(), Summary(), Sampler(), Diagnostics()
+    rope, summary, sampler, diagnostics, checks = Rope(), Summary(), Sampler(), Diagnostics(), Checks()
     pair_tables = "\n".join(
         f"[[pairs]]\nx = {_toml_string(x)}\ny = {_toml_string(y)}\n# label = \"optional display title\"\n"
+        "# model = \"rank\"  # optional: this pair's own model\n"
         for x, y in pairs
     )
     columns = sorted({c for pair in pairs for c in pair})
@@ -27,6 +28,8 @@ def starter_spec(data_path: str, pairs: list[tuple[str, str]], title: str = "Cor
 # Unknown keys are errors, so a typo is caught rather than ignored.
 
 engine = "mcmc"      # mcmc: sample all five parameters | exact: rho only, by quadrature under Jeffreys' priors
+model = "normal"     # normal | student_t: robust to outlying rows | rank: Kendall's tau, for ordinal or tied data
+                     # | auto: normal and robust, and the model checks choose which leads
 
 [report]
 title = {_toml_string(title)}
@@ -97,6 +100,20 @@ tune = {sampler.tune}       # tuning draws per chain, discarded
 chains = {sampler.chains}
 target_accept = {sampler.target_accept}
 seed = {sampler.seed}   # master seed; each pair's seed is derived from it and the pair's columns
+
+# How the model checks on every pair's page judge the data.
+[checks]
+influence_shift = {checks.influence_shift}       # flag a row whose removal alone moves the median of rho more than this
+outlier_level = {checks.outlier_level}        # family-wise level of the outlier limit on Mahalanobis distances
+normality_level = {checks.normality_level}      # Mardia's skewness or kurtosis test below this flags the shape
+discrete_max_distinct = {checks.discrete_max_distinct}  # a column with this many distinct values or fewer is coarse
+discrete_tied_share = {checks.discrete_tied_share}   # ... as is one where this share of pairs of rows is tied
+predictive_level = {checks.predictive_level}     # replicated data that rarely look like the data flag the model
+
+# The alternative priors each pair's interval and verdicts are tried under.
+[sensitivity]
+rho_priors = []      # e.g. [{{family = "beta", a = 3, b = 3}}]; empty: uniform, stretched Beta(2, 2) and Beta(5, 5)
+nuisance_widths = [0.5, 2.0]  # the means' and SDs' priors this many times as wide
 
 [diagnostics]
 rhat_max = {diagnostics.rhat_max}     # fail at or above

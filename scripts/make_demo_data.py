@@ -47,6 +47,22 @@ def make_survey(seed: int = SEED) -> pd.DataFrame:
     # Sensor drop-outs: the chlorophyll probe failed on some visits.
     chlorophyll[rng.random(rows) < 0.12] = np.nan
 
+    # Drawn after everything above, so the earlier columns stay as they were.
+    # Rainfall in the 24 hours before the visit and E. coli counts: unrelated on ordinary visits, but two
+    # visits came straight after storms, with extreme values of both. Those two rows alone make the
+    # correlation look strong; the checks are meant to find them.
+    rainfall = rng.gamma(shape=1.4, scale=3.0, size=rows)
+    e_coli = rng.lognormal(mean=5.0, sigma=0.35, size=rows)
+    for storm_row, rain, count in ((39, 58.0, 2900.0), (64, 64.0, 3400.0)):
+        rainfall[storm_row] = rain
+        e_coli[storm_row] = count
+
+    # Two survey scores on ordinal scales with heavy ties: bank erosion (0 = none to 4 = severe) and the
+    # invertebrate class (1 = poor to 5 = excellent), linked through one latent condition of the reach.
+    condition = rng.normal(size=rows)
+    erosion = np.digitize(-0.8 * condition + rng.normal(0, 0.6, rows), [-1.2, -0.3, 0.5, 1.3])
+    invertebrates = 1 + np.digitize(0.8 * condition + rng.normal(0, 0.6, rows), [-1.0, -0.2, 0.6, 1.4])
+
     return pd.DataFrame({
         "station": station,
         "month": month,
@@ -59,6 +75,10 @@ def make_survey(seed: int = SEED) -> pd.DataFrame:
         "nitrate_mg_l": nitrate.round(2),
         "phosphate_mg_l": phosphate.round(3),
         "chlorophyll_ug_l": chlorophyll.round(1),
+        "rainfall_24h_mm": rainfall.round(1),
+        "e_coli_cfu_100ml": e_coli.round(0),
+        "bank_erosion_score": erosion,
+        "invertebrate_class": invertebrates,
     })
 
 

@@ -208,10 +208,10 @@ def test_a_crashing_sampler_fails_one_pair_not_the_run(project: Path, monkeypatc
 
     original = Fitter.fit
 
-    def flaky(self: Fitter, pair: object, master_seed: int) -> object:
+    def flaky(self: Fitter, pair: object, master_seed: int, model: str = "normal") -> object:
         if pair.pair.key == "a vs c":  # type: ignore[attr-defined]
             raise RuntimeError("simulated sampler crash")
-        return original(self, pair, master_seed)  # type: ignore[arg-type]
+        return original(self, pair, master_seed, model)  # type: ignore[arg-type]
 
     monkeypatch.setattr(Fitter, "fit", flaky)
     out = project / "flaky"
@@ -228,7 +228,7 @@ def test_ctrl_c_exits_130_and_changes_nothing(project: Path, finished_run: Path,
                                              monkeypatch: pytest.MonkeyPatch) -> None:
     from reportgen.fit import Fitter
 
-    def interrupted(self: Fitter, pair: object, master_seed: int) -> object:
+    def interrupted(self: Fitter, pair: object, master_seed: int, model: str = "normal") -> object:
         raise KeyboardInterrupt
 
     monkeypatch.setattr(Fitter, "fit", interrupted)

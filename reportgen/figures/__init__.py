@@ -15,7 +15,8 @@ Layout of the package
 * :mod:`reportgen.figures.pair` — :func:`scatter_with_ellipses`,
   :func:`ellipse_geometry`, :func:`rho_density`, :func:`parameter_densities`
   and :class:`DensityPanel`;
-* :mod:`reportgen.figures.diagram` — :func:`model_diagram`.
+* :mod:`reportgen.figures.diagram` — :func:`model_diagram`;
+* :mod:`reportgen.figures.checks` — :func:`mahalanobis_qq` (model checks).
 
 The public names are re-exported here; import them from ``reportgen.figures``.
 
@@ -43,6 +44,7 @@ like matplotlib itself, not safe to call from several threads at once.
 
 from __future__ import annotations
 
+from reportgen.figures.checks import mahalanobis_qq
 from reportgen.figures.diagram import model_diagram
 from reportgen.figures.pair import (
     DensityPanel,
@@ -84,6 +86,7 @@ __all__ = [
     "correlation_matrix",
     "ellipse_geometry",
     "forest_plot",
+    "mahalanobis_qq",
     "model_diagram",
     "parameter_densities",
     "plain_text",

@@ -15,6 +15,7 @@ from matplotlib.ticker import MaxNLocator
 from numpy.typing import ArrayLike
 from scipy.stats import chi2
 
+from reportgen.figures.checks import MAX_LABELS, _place_labels
 from reportgen.figures.style import (
     _BROWN,
     _SHADE_ALPHA,
@@ -135,17 +136,56 @@ def _subsample(n: int, max_points: int, seed: int) -> np.ndarray:
     return np.sort(rng.choice(n, size=max_points, replace=False))
 
 
+_SCATTER_AXES_PT = (HALF_WIDTH * 72.0 - 50.0, 3.0 * 72.0 - 75.0)  # rough axes size, for label placement
+
+
+def _highlight_positions(highlight: ArrayLike | None, n: int) -> np.ndarray:
+    """Validated integer positions of the rows to mark (indices into x and y)."""
+    if highlight is None:
+        return np.empty(0, dtype=np.intp)
+    raw = np.asarray(highlight)
+    if raw.size == 0:
+        return np.empty(0, dtype=np.intp)
+    if raw.ndim != 1 or not np.issubdtype(raw.dtype, np.integer):
+        raise ValueError("highlight must be a one-dimensional array of integer positions")
+    if raw.min() < 0 or raw.max() >= n:
+        raise ValueError(f"highlight positions must lie in [0, {n - 1}]")
+    return raw.astype(np.intp)
+
+
+def _first_occurrences(positions: np.ndarray, labels: list[str]) -> tuple[np.ndarray, list[str]]:
+    """Drop repeated positions (a row marked twice keeps its first label)."""
+    _, first = np.unique(positions, return_index=True)
+    keep = np.sort(first)
+    return positions[keep], [labels[i] for i in keep if i < len(labels)]
+
+
+def _draw_highlights(ax: Any, xa: np.ndarray, ya: np.ndarray, positions: np.ndarray,
+                     labels: Sequence[str], dot_size: float) -> None:
+    """Ring the marked rows (vector, on top of any subsample) and label the first few."""
+    xs, ys = xa[positions], ya[positions]
+    # the rows themselves, in case the subsample left them out
+    ax.scatter(xs, ys, s=dot_size, color=SLATE, linewidths=0, zorder=4, gid="highlight-points")
+    ax.scatter(xs, ys, s=48.0, facecolors="none", edgecolors=AMBER, linewidths=1.1, zorder=5,
+               gid="highlight-rings")
+    shown = [_label(t, 60.0, 6.5, max_lines=1) for t in labels[:MAX_LABELS]]
+    _place_labels(ax, xs, ys, shown, axes_pt=_SCATTER_AXES_PT, fontsize=6.5, gid_prefix="highlight-label-")
+
+
 @_styled
 def scatter_with_ellipses(
     x: ArrayLike,
     y: ArrayLike,
     *,
-    mean: tuple[float, float],
-    cov: ArrayLike,
+    mean: tuple[float, float] | None = None,
+    cov: ArrayLike | None = None,
     x_label: str,
     y_label: str,
     max_points: int = 4000,
     seed: int = 0,
+    highlight: np.ndarray | None = None,
+    highlight_labels: Sequence[str] = (),
+    ellipses: bool = True,
 ) -> str:
     """Scatter plot of the data with the fitted 50% and 95% ellipses.
 
@@ -159,20 +199,36 @@ def scatter_with_ellipses(
     than :data:`RASTER_THRESHOLD` drawn points are rasterised at
     :data:`RASTER_DPI`.  Half width, 3.3 x 3.0 in.
 
+    Rows in *highlight* are always drawn as vectors, whether or not the
+    subsample holds them, with an open amber ring (SVG group
+    ``highlight-rings``); the first 12 carry their label from
+    *highlight_labels* (groups ``highlight-label-0``, ``-1``, ...), the rest are
+    ringed only.  A highlighted row with a non-finite coordinate is skipped.
+
     Parameters
     ----------
     x, y : array_like
         Observations, equal length.
-    mean : (float, float)
-        Mean of the fitted bivariate normal.
-    cov : array_like, shape (2, 2)
-        Covariance of the fitted bivariate normal.
+    mean : (float, float) or None
+        Mean of the fitted bivariate normal; required when *ellipses* is true,
+        ignored otherwise.
+    cov : array_like, shape (2, 2), or None
+        Covariance of the fitted bivariate normal; required when *ellipses* is
+        true, ignored otherwise.
     x_label, y_label : str
         Axis labels (untrusted text).
     max_points : int, default 4000
-        Largest number of points drawn.
+        Largest number of points drawn (highlighted rows come on top).
     seed : int, default 0
         Seed of the subsample.
+    highlight : numpy.ndarray of int or None, default None
+        Positions in *x* and *y* of rows to mark.
+    highlight_labels : sequence of str, default ()
+        Labels of the highlighted rows in the same order, e.g. "row 14"
+        (untrusted text); may be shorter than *highlight*.
+    ellipses : bool, default True
+        Draw the ellipses and the mean; false for models without a normal fit
+        (such as the rank model), where the limits cover the data only.
 
     Returns
     -------
@@ -183,13 +239,26 @@ def scatter_with_ellipses(
     ya = _vector("y", y, xa.size)
     if max_points < 1:
         raise ValueError("max_points must be at least 1")
-    mu = _vector("mean", mean, 2)
-    if not np.all(np.isfinite(mu)):
-        raise ValueError("mean must be finite")
-    geoms = [(m, ellipse_geometry(cov, m)) for m in (0.5, 0.95)]
-    c = np.asarray(cov, dtype=float)
+    marked = _highlight_positions(highlight, xa.size)
+    labels = [str(t) for t in highlight_labels]
+    if len(labels) > marked.size:
+        raise ValueError(f"highlight_labels has {len(labels)} labels for {marked.size} highlighted rows")
+    marked, labels = _first_occurrences(marked, labels)
+    if ellipses:
+        if mean is None or cov is None:
+            raise ValueError("mean and cov are required when ellipses are drawn")
+        mu = _vector("mean", mean, 2)
+        if not np.all(np.isfinite(mu)):
+            raise ValueError("mean must be finite")
+        geoms = [(m, ellipse_geometry(cov, m)) for m in (0.5, 0.95)]
+        c = np.asarray(cov, dtype=float)
 
     keep = np.isfinite(xa) & np.isfinite(ya)
+    if marked.size:
+        # positions refer to the rows as given: map them past the dropped pairs
+        finite_marked = keep[marked]
+        labels = [t for t, ok in zip(labels, finite_marked[: len(labels)], strict=True) if ok]
+        marked = (np.cumsum(keep) - 1)[marked[finite_marked]]
     xa, ya = xa[keep], ya[keep]
     total = xa.size
     idx = _subsample(total, int(max_points), int(seed))
@@ -208,35 +277,50 @@ def scatter_with_ellipses(
 
     styles = {0.5: {"linewidth": 1.6, "linestyle": "-"},
               0.95: {"linewidth": 1.2, "linestyle": (0, (5, 2.5))}}
-    handles = []
-    for m, (w, h, angle) in geoms:
-        patch = Ellipse((mu[0], mu[1]), w, h, angle=angle, fill=False, edgecolor=TEAL,
-                        zorder=3, **styles[m])
-        ax.add_patch(patch)
-        handles.append(Line2D([], [], color=TEAL, **styles[m]))
-    ax.plot([mu[0]], [mu[1]], marker="+", color=TEAL, markersize=6, markeredgewidth=1.2,
-            zorder=3)
+    handles: list[Any] = []
+    names: list[str] = []
+    if ellipses:
+        for m, (w, h, angle) in geoms:
+            patch = Ellipse((mu[0], mu[1]), w, h, angle=angle, fill=False, edgecolor=TEAL,
+                            zorder=3, **styles[m])
+            ax.add_patch(patch)
+            handles.append(Line2D([], [], color=TEAL, **styles[m]))
+        names += ["50% ellipse", "95% ellipse"]
+        ax.plot([mu[0]], [mu[1]], marker="+", color=TEAL, markersize=6, markeredgewidth=1.2,
+                zorder=3)
 
     # limits: all data (not just the drawn subset) and the whole 95% ellipse
-    q95 = float(chi2.ppf(0.95, df=2))
-    ext = np.sqrt(q95 * np.diag(c))
-    for axis_set, data, centre, half in ((ax.set_xlim, xa, mu[0], ext[0]),
-                                         (ax.set_ylim, ya, mu[1], ext[1])):
-        lo, hi = centre - half, centre + half
+    if ellipses:
+        q95 = float(chi2.ppf(0.95, df=2))
+        ext = np.sqrt(q95 * np.diag(c))
+        spans = ((mu[0] - ext[0], mu[0] + ext[0]), (mu[1] - ext[1], mu[1] + ext[1]))
+    else:
+        spans = ((math.inf, -math.inf), (math.inf, -math.inf))
+    for axis_set, data, (lo, hi) in ((ax.set_xlim, xa, spans[0]), (ax.set_ylim, ya, spans[1])):
         if data.size:
             lo, hi = min(lo, float(data.min())), max(hi, float(data.max()))
+        if not lo <= hi:  # no ellipse and no data
+            lo, hi = 0.0, 1.0
         pad = 0.05 * (hi - lo) if hi > lo else 1.0
         axis_set(lo - pad, hi + pad)
     ax.xaxis.set_major_locator(MaxNLocator(5))
     ax.yaxis.set_major_locator(MaxNLocator(5))
 
+    if marked.size:
+        _draw_highlights(ax, xa, ya, marked, labels, size)
+        handles.append(Line2D([], [], linestyle="none", marker="o", markersize=6.9,
+                              markerfacecolor="none", markeredgecolor=AMBER, markeredgewidth=1.1))
+        names.append("flagged row")
+        drawn = int(np.union1d(idx, marked).size)
+
     ax.set_xlabel(_label(x_label, 200.0, 8.0))
     ax.set_ylabel(_label(y_label, 180.0, 8.0))
     note = f"{drawn:,} of {total:,} points shown" if drawn < total else None
-    legend = ax.legend(handles, ["50% ellipse", "95% ellipse"], loc="lower left",
-                       bbox_to_anchor=(0.0, 1.0), ncols=2, title=note, alignment="left",
-                       title_fontproperties={"size": 6.5})
-    legend.get_title().set_color(SLATE)
+    if handles or note:
+        legend = ax.legend(handles, names, loc="lower left",
+                           bbox_to_anchor=(0.0, 1.0), ncols=2, title=note, alignment="left",
+                           title_fontproperties={"size": 6.5})
+        legend.get_title().set_color(SLATE)
     return _to_svg(fig)
 
 

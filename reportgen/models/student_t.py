@@ -70,15 +70,3 @@ def build_model(inputs: ModelInputs) -> Any:
         pm.Potential("loglik", pt.sum(loglik))
     return model
 
-
-def tails_sentence(nu_median: float, nu_lower: float, nu_upper: float) -> str:
-    """What the posterior of nu says about the tails, in words."""
-    span = f"(median {nu_median:.1f}; interval {nu_lower:.1f} to {nu_upper:.1f})"
-    if nu_upper < 10:
-        return (f"The degrees of freedom are small {span}: the data have clearly heavier tails than a normal "
-                "distribution, so rows far from the rest are common and the normal model would overweight them.")
-    if nu_median < 20:
-        return (f"The degrees of freedom are moderate {span}: the tails look somewhat heavier than normal, "
-                "though the data cannot rule out near-normal tails.")
-    return (f"The degrees of freedom are large {span}: the tails look close to those of a normal distribution, "
-            "so the robust and the normal model should agree.")

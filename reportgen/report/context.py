@@ -1,98 +1,34 @@
-"""Stage 6: lay the results out as a self-contained HTML page and a PDF.
+"""The report's context: every figure, number and sentence the templates place, already formatted.
 
-Everything the templates show is computed here or earlier, as plain strings
-and lists; the templates only place them. User text (titles, labels, column
-names) is untrusted: Jinja autoescapes it, it is never used as a template, and
-the PDF renderer is given a URL fetcher that serves only inline images and the
-report's own font files, so no data or label can make it read a file or reach
-the network.
+User text (titles, labels, column names) is passed as plain strings; Jinja
+escapes it when the templates are rendered.
 """
 
 from __future__ import annotations
 
-import base64
 import datetime as dt
+import hashlib
 import json
-import logging
-import os
-from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any
 
 import numpy as np
-from jinja2 import ChoiceLoader, Environment, FileSystemLoader, StrictUndefined, select_autoescape
 
 from reportgen import figures, interpret, narrative
 from reportgen.data import PairData
-from reportgen.errors import ReportAssetError
+from reportgen.report.checks import checks_context, highlighted_rows, run_checks_context
+from reportgen.report.render import logo_data_uri, svg_data_uri
 from reportgen.results import PairResult, RunResults
 from reportgen.spec import Spec
 
-LOGGER = logging.getLogger(__name__)
-MAX_LOGO_BYTES = 2 * 1024 * 1024
-IMAGE_SIGNATURES = {
-    b"\x89PNG\r\n\x1a\n": "image/png",
-    b"\xff\xd8\xff": "image/jpeg",
-}
 PARAMETER_TITLES = {
     "mu_x": ("\u03bc\u2081", "mean of {x}"),
     "mu_y": ("\u03bc\u2082", "mean of {y}"),
     "sigma_x": ("\u03c3\u2081", "SD of {x}"),
     "sigma_y": ("\u03c3\u2082", "SD of {y}"),
     "rho": ("\u03c1", "correlation"),
+    "nu": ("\u03bd", "degrees of freedom (tails)"),
+    "tau": ("\u03c4", "Kendall's rank correlation"),
 }
-FONT_FILES = {
-    "normal": "DejaVuSans.ttf",
-    "bold": "DejaVuSans-Bold.ttf",
-    "italic": "DejaVuSans-Oblique.ttf",
-}
-
-
-def template_folders(user_folder: Path | None) -> list[Path]:
-    """The user's template folder (if any) first, then the shipped templates."""
-    package_dir = Path(__file__).resolve().parent
-    shipped = package_dir / "templates"
-    if not shipped.is_dir():  # running from a source checkout
-        shipped = package_dir.parent / "templates"
-    folders = [shipped]
-    if user_folder is not None:
-        if not user_folder.is_dir():
-            raise ReportAssetError(f"{user_folder}: report.templates must name a folder of templates")
-        folders.insert(0, user_folder)
-    return folders
-
-
-def environment(user_folder: Path | None = None) -> Environment:
-    loaders = [FileSystemLoader(str(folder)) for folder in template_folders(user_folder)]
-    env = Environment(
-        loader=ChoiceLoader(loaders),
-        autoescape=select_autoescape(["html", "j2", "htm"], default_for_string=True, default=True),
-        undefined=StrictUndefined,
-        keep_trailing_newline=True,
-    )
-    return env
-
-
-def svg_data_uri(svg: str) -> str:
-    return "data:image/svg+xml;base64," + base64.b64encode(svg.encode("utf-8")).decode("ascii")
-
-
-def logo_data_uri(spec: Spec) -> str:
-    """The logo, checked and inlined: the renderer never opens the user's path itself."""
-    if not spec.document.report.logo:
-        return ""
-    path = spec.resolve_input(spec.document.report.logo, "report.logo")
-    where = f"{path} (report.logo)"
-    if not path.is_file():
-        raise ReportAssetError(f"{where}: logo file not found; fix the path or remove report.logo")
-    size = path.stat().st_size
-    if size > MAX_LOGO_BYTES:
-        raise ReportAssetError(f"{where}: logo is {size / 1e6:.1f} MB; use an image under 2 MB")
-    head = path.read_bytes()[:16]
-    for signature, mime in IMAGE_SIGNATURES.items():
-        if head.startswith(signature):
-            return f"data:{mime};base64," + base64.b64encode(path.read_bytes()).decode("ascii")
-    raise ReportAssetError(f"{where}: not a PNG or JPEG image; convert the logo to PNG")
 
 
 def _unit_suffix(unit: str) -> str:
@@ -104,11 +40,14 @@ def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, st
     thresholds = sorted({t for rule in document.rules for t in rule.thresholds})
     rope = (document.rope.lower, document.rope.upper)
     rho = result.rho
+    highlight, highlight_labels = highlighted_rows(result)
     scatter = figures.scatter_with_ellipses(
         data.x, data.y, mean=result.mean_vector, cov=result.covariance,
         x_label=result.x_label + _unit_suffix(result.x_unit),
         y_label=result.y_label + _unit_suffix(result.y_unit),
         seed=result.seed if result.seed is not None else 0,  # only picks which points a large scatter shows
+        highlight=highlight if highlight.size else None, highlight_labels=highlight_labels,
+        ellipses=result.model != "rank",  # rank correlation says nothing about an ellipse's shape
     )
     prior_on_grid = np.interp(rho.grid, result.prior_grid, result.prior_density)
     check = result.crosscheck
@@ -236,22 +175,15 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "bfmi": "n/a" if not np.isfinite(diag.bfmi_min) else f"{diag.bfmi_min:.2f}",
         "seed": "\u2014" if result.seed is None else str(result.seed),
         "figures": figs,
+        "model": result.model,
+        "checks": checks_context(result),
     }
 
 
 def _anchor(key: str) -> str:
     """A link target unique per pair: a readable part plus a short hash of the exact key."""
-    import hashlib
-
     safe = "".join(ch if ch.isalnum() else "-" for ch in key.lower()).strip("-")[:50]
     return f"pair-{safe}-{hashlib.sha256(key.encode()).hexdigest()[:8]}"
-
-
-@dataclass(frozen=True)
-class RenderedReport:
-    html: str
-    pdf: bytes
-    refused_urls: tuple[str, ...] = field(default=())
 
 
 def build_context(
@@ -310,8 +242,10 @@ def build_context(
         "summary_rows": [{
             "anchor": p["anchor"], "title": p["title"], "n": p["n"], "median": p["median"],
             "interval": p["interval"], "p_positive": p["p_positive"], "rules": p["rules"],
-            "status": p["status"], "bf10": p["bf10"],
+            "status": p["status"], "bf10": p["bf10"], "model": p["checks"]["model_short"],
         } for p in pairs],
+        "model_warnings": run_checks_context(results, _anchor),
+        "prior_sensitive": [p.title for p in results.pairs if p.sensitivity and p.sensitivity.prior_sensitive],
         "forest": svg_data_uri(forest),
         "matrices": matrix_figures(results, spec),
         "pairs": pairs,
@@ -334,73 +268,3 @@ def build_context(
     }
 
 
-def render_html(context: dict[str, Any], user_templates: Path | None = None) -> str:
-    """The report's HTML; a broken user template is the user's error, reported in one line."""
-    from jinja2 import TemplateError
-
-    try:
-        return environment(user_templates).get_template("report.html.j2").render(**context)
-    except (TemplateError, RecursionError) as exc:
-        if user_templates is None:
-            raise
-        detail = " ".join(str(exc).split())[:160] or type(exc).__name__
-        raise ReportAssetError(f"{user_templates}: a template in report.templates failed ({detail}); "
-                               "fix it or remove it to use the shipped one") from None
-
-
-def _font_css() -> tuple[str, dict[str, Path]]:
-    import matplotlib
-
-    font_dir = Path(matplotlib.get_data_path()) / "fonts" / "ttf"
-    allowed: dict[str, Path] = {}
-    rules = []
-    for style, filename in FONT_FILES.items():
-        path = (font_dir / filename).resolve()
-        url = path.as_uri()
-        allowed[url] = path
-        weight = "bold" if style == "bold" else "normal"
-        font_style = "italic" if style == "italic" else "normal"
-        rules.append(f'@font-face {{ font-family: "Report Sans"; src: url("{url}"); '
-                     f"font-weight: {weight}; font-style: {font_style}; }}")
-    return "\n".join(rules), allowed
-
-
-def render_pdf(html: str, report_date: str) -> tuple[bytes, tuple[str, ...]]:
-    """PDF bytes, and the URLs the renderer asked for and was refused."""
-    import weasyprint
-    from weasyprint.text.fonts import FontConfiguration
-
-    font_css, allowed_files = _font_css()
-    refused: list[str] = []
-
-    class ReportOnlyFetcher(weasyprint.URLFetcher):
-        """Serves inline images and the shipped fonts; refuses everything else."""
-
-        def fetch(self, url: str, headers: Any = None) -> Any:
-            if url.startswith(("data:image/svg+xml", "data:image/png", "data:image/jpeg")):
-                return super().fetch(url, headers)
-            if url in allowed_files:
-                return weasyprint.urls.URLFetcherResponse(
-                    url, body=allowed_files[url].read_bytes(), headers={"Content-Type": "font/ttf"})
-            refused.append(url[:200])
-            LOGGER.warning("refused a resource request from the report: %s", url[:200])
-            raise ValueError(f"reportgen refuses to fetch {url[:80]}")
-
-    fetcher = ReportOnlyFetcher(allowed_protocols=("data", "file"), allow_redirects=False, timeout=1)
-    font_config = FontConfiguration()
-    stylesheet = weasyprint.CSS(string=font_css, font_config=font_config, url_fetcher=fetcher)
-    document = weasyprint.HTML(string=html, base_url=None, url_fetcher=fetcher)
-    # Font subsets carry a "modified" timestamp; fontTools takes it from SOURCE_DATE_EPOCH when set,
-    # so pinning it to the report's date makes the PDF bytes repeatable.
-    epoch = dt.datetime.combine(dt.date.fromisoformat(report_date), dt.time(), dt.UTC).timestamp()
-    saved = os.environ.get("SOURCE_DATE_EPOCH")
-    os.environ["SOURCE_DATE_EPOCH"] = str(int(epoch))
-    try:
-        pdf = document.write_pdf(stylesheets=[stylesheet], font_config=font_config,
-                                 pdf_identifier=b"reportgen-" + report_date.encode())
-    finally:
-        if saved is None:
-            os.environ.pop("SOURCE_DATE_EPOCH", None)
-        else:
-            os.environ["SOURCE_DATE_EPOCH"] = saved
-    return pdf, tuple(refused)

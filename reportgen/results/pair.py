@@ -5,18 +5,23 @@ from __future__ import annotations
 import dataclasses
 import time
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from reportgen import exact, interpret, summaries
+from reportgen.checks.sensitivity import Sensitivity
+from reportgen.checks.summary import ModelChecks
 from reportgen.crosscheck import CrossCheck, cross_check, exact_only_check, exact_rule_probability
 from reportgen.data import PairData
 from reportgen.diagnostics import NOT_SAMPLED, STATUS_ORDER, Diagnosis, diagnose
-from reportgen.fit import PARAMETERS, PairFit, derive_seed
+from reportgen.fit import PairFit, derive_seed
+from reportgen.models.rank import rank_posterior
 from reportgen.spec import Spec
 
 R_LIMIT = 1.0 - 1e-9  # the exact engine's domain; the data stage refuses |r| this close to 1
-PARAMETER_BOUNDS = {"rho": (-1.0, 1.0), "sigma_x": (0.0, None), "sigma_y": (0.0, None)}
+PARAMETER_BOUNDS = {"rho": (-1.0, 1.0), "tau": (-1.0, 1.0), "sigma_x": (0.0, None), "sigma_y": (0.0, None),
+                    "nu": (1.0, None)}
 
 
 @dataclass(frozen=True)
@@ -78,6 +83,12 @@ class PairResult:
     engine: str  # "mcmc" or "exact"
     sufficient: tuple[tuple[str, float], ...]  # n, means, centred sums: every number derives from these
     interval_excludes_zero: bool
+    model: str = "normal"  # the model these numbers come from: "normal", "student_t" or "rank"
+    # Filled in by results.outcome once every fit of the pair is in: what the checks found, how the
+    # verdicts move under other priors, and which model leads and why.
+    checks: ModelChecks | None = None
+    sensitivity: Sensitivity | None = None
+    choice: Any = None  # results.choice.ModelChoice
 
     @property
     def rho(self) -> ParameterSummary:
@@ -145,15 +156,18 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
     document = spec.document
     mass = document.summary.credible_mass
     kind = document.summary.interval
-    parameters = {name: summarise_parameter(name, fit.draws[name], mass, kind) for name in PARAMETERS}
+    parameters = {name: summarise_parameter(name, values, mass, kind) for name, values in fit.draws.items()}
     rho_draws = np.ravel(fit.draws["rho"])
     probabilities = {rule.name: summaries.rule_probability(rho_draws, rule) for rule in document.rules}
     diagnosis = diagnose(fit.draws, fit.diverging, fit.energy, document.diagnostics)
     rho_diagnostics = next(p for p in diagnosis.parameters if p.name == "rho")
-    check = cross_check(
-        rho_draws, rho_diagnostics.mcse_mean, rho_diagnostics.ess_bulk, data.stats.n, data.stats.sample_r,
-        data.pair.priors, document.rules, mass, probabilities,
-    )
+    if fit.model == "normal":
+        check = cross_check(
+            rho_draws, rho_diagnostics.mcse_mean, rho_diagnostics.ess_bulk, data.stats.n, data.stats.sample_r,
+            data.pair.priors, document.rules, mass, probabilities,
+        )
+    else:  # the exact reference is the normal model's; another model has none to compare with
+        check = no_reference_check(rho_draws, data.pair.priors.rho.shapes, mass)
     if check.applies and not check.within_error:
         reason = "the sampler and the exact reference for \u03c1 differ by more than the allowance"
         diagnosis = dataclasses.replace(
@@ -169,7 +183,24 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
         seed=fit.seed, seconds=fit.seconds,
         covariance=_posterior_covariance(fit.draws),
         mean_vector=(float(np.mean(fit.draws["mu_x"])), float(np.mean(fit.draws["mu_y"]))),
+        model=fit.model,
     )
+
+
+def no_reference_check(rho_draws: np.ndarray, shapes: tuple[float, float], mass: float) -> CrossCheck:
+    """For a model without an exact reference: nothing compared, no exact Bayes factor.
+
+    The Savage-Dickey ratio of the draws still estimates this model's own Bayes factor for rho = 0.
+    """
+    from reportgen.crosscheck import savage_dickey_bf10
+
+    values = np.ravel(rho_draws)
+    prior_zero = float(np.exp(exact.log_stretched_beta_pdf(np.array([0.0]), *shapes))[0])
+    nan = float("nan")
+    return CrossCheck(
+        applies=False, reference_priors=False, exact_mean=nan, exact_sd=nan, exact_lower=nan, exact_upper=nan,
+        mean_gap=0.0, mean_allowed=0.0, rule_gaps=(), log_bf10=nan,
+        savage_dickey_bf10=savage_dickey_bf10(values, prior_zero), grid=np.zeros(0), density=np.zeros(0))
 
 
 def pair_result_exact(spec: Spec, data: PairData, sampler_failure: str = "") -> PairResult:
@@ -181,18 +212,63 @@ def pair_result_exact(spec: Spec, data: PairData, sampler_failure: str = "") -> 
     the pair is marked "fail" with that reason, and the numbers are labelled as exact.
     """
     started = time.perf_counter()
-    document = spec.document
-    mass = document.summary.credible_mass
     a, b = data.pair.priors.rho.shapes
     r = float(np.clip(data.stats.sample_r, -R_LIMIT, R_LIMIT))
     posterior = exact.exact_posterior(data.stats.n, r, a, b)
+    diagnosis = NOT_SAMPLED
+    if sampler_failure:
+        diagnosis = dataclasses.replace(NOT_SAMPLED, status="fail",
+                                        reasons=(f"the sampler failed ({sampler_failure})",))
+    seed = derive_seed(spec.document.sampler.seed, data.pair.x, data.pair.y) if sampler_failure else None
+    return _result_from_posterior(spec, data, posterior, {}, diagnosis, seed, started, "normal")
+
+
+def pair_result_rank(spec: Spec, data: PairData) -> PairResult:
+    """The result of one pair from the rank model (Kendall's tau, shown on Pearson's scale); no sampler."""
+    started = time.perf_counter()
+    a, b = data.pair.priors.rho.shapes
+    posterior = rank_posterior(data.x, data.y, a, b)
+    rho_grid, rho_density = plotting_grid(np.asarray(posterior.rho), np.asarray(posterior.density))
+    tau_grid = 2.0 / np.pi * np.arcsin(np.clip(rho_grid, -1.0, 1.0))
+    # density of tau = density of rho times d rho / d tau = (pi / 2) cos(pi tau / 2)
+    tau_density = rho_density * (np.pi / 2.0) * np.cos(np.pi * tau_grid / 2.0)
+    mass = spec.document.summary.credible_mass
+    tail = (1.0 - mass) / 2.0
+    tau_mean = float(np.trapezoid(tau_grid * tau_density, tau_grid))
+    tau_sd = float(np.sqrt(max(np.trapezoid((tau_grid - tau_mean) ** 2 * tau_density, tau_grid), 0.0)))
+    tau = ParameterSummary(
+        name="tau", mean=tau_mean, sd=tau_sd,
+        median=float(posterior.tau_median), lower=float(posterior.tau_quantile(tail)),
+        upper=float(posterior.tau_quantile(1.0 - tail)), grid=tau_grid, density=tau_density)
+    return _result_from_posterior(spec, data, posterior, {"tau": tau}, NOT_SAMPLED, None, started, "rank")
+
+
+def plotting_grid(grid: np.ndarray, density: np.ndarray, floor: float = 1e-12) -> tuple[np.ndarray, np.ndarray]:
+    """The part of a quadrature grid worth drawing: strictly increasing, where the density is not negligible.
+
+    A grid laid out in atanh(rho) maps its far tails onto rho = -1 or 1 many times over (in floating point).
+    """
+    keep = np.isfinite(grid) & np.isfinite(density) & (density >= floor * np.max(density))
+    grid, density = grid[keep], density[keep]
+    increasing = np.concatenate([[True], np.diff(grid) > 0])
+    return grid[increasing], density[increasing]
+
+
+def _result_from_posterior(
+    spec: Spec, data: PairData, posterior: Any, extra: dict[str, ParameterSummary], diagnosis: Diagnosis,
+    seed: int | None, started: float, model: str,
+) -> PairResult:
+    """A pair's result from a one-dimensional posterior of rho computed by quadrature."""
+    document = spec.document
+    mass = document.summary.credible_mass
     tail = (1.0 - mass) / 2.0
     hdi = tuple(float(v) for v in posterior.hdi(mass))
     lower, upper = hdi if document.summary.interval == "hdi" else (
         float(posterior.quantile(tail)), float(posterior.quantile(1.0 - tail)))
+    grid, density = plotting_grid(np.asarray(posterior.rho), np.asarray(posterior.density))
     rho = ParameterSummary(
         name="rho", mean=float(posterior.mean), sd=float(posterior.sd), median=float(posterior.median),
-        lower=lower, upper=upper, grid=np.asarray(posterior.rho), density=np.asarray(posterior.density))
+        lower=lower, upper=upper, grid=grid, density=density)
     probabilities = {rule.name: exact_rule_probability(posterior, rule) for rule in document.rules}
     check = exact_only_check(posterior, mass)
     # median of rho^2: P(rho^2 <= t) = cdf(sqrt t) - cdf(-sqrt t), solved by bisection
@@ -203,18 +279,13 @@ def pair_result_exact(spec: Spec, data: PairData, sampler_failure: str = "") -> 
         low, high = (mid, high) if share < 0.5 else (low, mid)
     sx, sy = data.stats.sd_x, data.stats.sd_y
     covariance = np.array([[sx * sx, rho.mean * sx * sy], [rho.mean * sx * sy, sy * sy]])
-    diagnosis = NOT_SAMPLED
-    if sampler_failure:
-        diagnosis = dataclasses.replace(NOT_SAMPLED, status="fail",
-                                        reasons=(f"the sampler failed ({sampler_failure})",))
     return _assemble(
-        spec, data, engine="exact", parameters={"rho": rho}, hdi=(hdi[0], hdi[1]),
+        spec, data, engine="exact", parameters={"rho": rho, **extra}, hdi=(hdi[0], hdi[1]),
         p_positive=float(posterior.prob_above(0.0)), r2_median=0.5 * (low + high),
         rope_probability=float(posterior.prob_between(document.rope.lower, document.rope.upper)),
         rules=_rule_outcomes(spec, probabilities), diagnosis=diagnosis, check=check,
-        seed=derive_seed(document.sampler.seed, data.pair.x, data.pair.y) if sampler_failure else None,
-        seconds=time.perf_counter() - started, covariance=covariance,
-        mean_vector=(data.stats.mean_x, data.stats.mean_y),
+        seed=seed, seconds=time.perf_counter() - started, covariance=covariance,
+        mean_vector=(data.stats.mean_x, data.stats.mean_y), model=model,
     )
 
 
@@ -222,7 +293,7 @@ def _assemble(
     spec: Spec, data: PairData, *, engine: str, parameters: dict[str, ParameterSummary],
     hdi: tuple[float, float], p_positive: float, r2_median: float, rope_probability: float,
     rules: tuple[RuleOutcome, ...], diagnosis: Diagnosis, check: CrossCheck, seed: int | None, seconds: float,
-    covariance: np.ndarray, mean_vector: tuple[float, float],
+    covariance: np.ndarray, mean_vector: tuple[float, float], model: str = "normal",
 ) -> PairResult:
     document = spec.document
     mass = document.summary.credible_mass
@@ -239,9 +310,15 @@ def _assemble(
         diagnostics_sentence = (f"The sampler failed for this pair ({'; '.join(diagnosis.reasons)}); the numbers "
                                 "shown are the exact engine's fallback, under Jeffreys' priors for the means "
                                 "and SDs rather than the spec's.")
+    elif model == "rank":
+        check_sentence = interpret.rank_model_sentence()
+        diagnostics_sentence = "No sampler was run: the rank model's posterior is computed by quadrature."
     elif engine == "exact":
         check_sentence = interpret.exact_engine_sentence()
         diagnostics_sentence = "No sampler was run: the exact engine computes the posterior by quadrature."
+    elif model != "normal":
+        check_sentence = interpret.no_reference_sentence()
+        diagnostics_sentence = interpret.diagnostics_sentence(diagnosis.status, diagnosis.reasons)
     else:
         check_sentence = interpret.crosscheck_sentence(
             applies=check.applies, reference_priors=check.reference_priors, mean_gap=check.mean_gap,
@@ -267,44 +344,11 @@ def _assemble(
         diagnostics_sentence=diagnostics_sentence,
         prior_grid=prior_grid, prior_density=np.exp(exact.log_stretched_beta_pdf(prior_grid, a, b)),
         covariance=covariance, mean_vector=mean_vector, crosscheck=check,
-        evidence_sentence=interpret.evidence_sentence(check.log_bf10),
+        evidence_sentence=interpret.evidence_sentence(check.log_bf10, model),
         crosscheck_sentence=check_sentence, engine=engine,
         sufficient=tuple((k, float(getattr(data.stats, k))) for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")),
-        interval_excludes_zero=rho.lower > 0 or rho.upper < 0,
+        interval_excludes_zero=rho.lower > 0 or rho.upper < 0, model=model,
     )
-
-
-CSV_COLUMNS = (
-    "pair", "x", "y", "n", "n_dropped", "sample_r", "rho_mean", "rho_median", "rho_sd",
-    "rho_lower", "rho_upper", "rhat_max", "ess_bulk_min", "ess_tail_min", "divergences", "status",
-)
-
-
-def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
-    """The rows of results.csv: the fixed columns, then extras, then one p_<rule> per rule."""
-    rule_names = results.rule_names
-    interval_text = f"{results.interval_kind} {results.credible_mass:g}"
-    header = [*CSV_COLUMNS, "p_positive", "p_rope", "rope_decision", "interval",
-              "fisher_lower", "fisher_upper", "p_value", "seed", "status_reasons",
-              "exact_mean", "exact_sd", "exact_mean_gap", "log_bf10", "savage_dickey_bf10", "engine",
-              *[f"p_{name}" for name in rule_names]]
-    rows: list[list[object]] = []
-    for pair in results.pairs:
-        rho = pair.rho
-        d = pair.diagnosis
-        rows.append([
-            pair.key, pair.x, pair.y, pair.n, pair.n_dropped, repr(pair.reference.r),
-            repr(rho.mean), repr(rho.median), repr(rho.sd), repr(rho.lower), repr(rho.upper),
-            *(("", "", "") if pair.engine == "exact" else
-              (f"{d.rhat_max:.4f}", f"{d.ess_bulk_min:.0f}", f"{d.ess_tail_min:.0f}")), d.divergences,
-            pair.status, repr(pair.p_positive), repr(pair.rope_probability), pair.rope_decision,
-            interval_text, repr(pair.reference.ci_lower), repr(pair.reference.ci_upper),
-            repr(pair.reference.p_value), "" if pair.seed is None else pair.seed, "; ".join(d.reasons),
-            repr(pair.crosscheck.exact_mean), repr(pair.crosscheck.exact_sd), repr(pair.crosscheck.mean_gap),
-            repr(pair.crosscheck.log_bf10), repr(pair.crosscheck.savage_dickey_bf10), pair.engine,
-            *[repr(rule.probability) for rule in pair.rules],
-        ])
-    return header, rows
 
 
 def run_results(spec: Spec, pairs: tuple[PairResult, ...]) -> RunResults:

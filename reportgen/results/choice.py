@@ -1,0 +1,138 @@
+"""Which model's numbers lead a pair, and what the other fits say beside them.
+
+Under ``model = "auto"`` the normal fit leads unless the checks flag it; then
+the robust fit leads (the Student-t model with the sampler, the rank model
+with the exact engine). Either way the other fit is shown beside it, and the
+reader is told in one sentence why this one leads and whether the two agree.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from reportgen import interpret
+from reportgen.checks.summary import ModelChecks
+from reportgen.results.pair import PairResult
+
+MODEL_SHORT_NAMES = {"normal": "normal", "student_t": "robust t", "rank": "rank"}
+MODEL_NAMES = {
+    "normal": "normal",
+    "student_t": "robust (Student-t)",
+    "rank": "rank (Kendall's \u03c4)",
+}
+
+
+@dataclass(frozen=True)
+class FitSummary:
+    """One model's rho for a pair, as shown beside the leading fit."""
+
+    model: str
+    name: str  # in words, e.g. "robust (Student-t)"
+    median: float
+    lower: float
+    upper: float
+    status: str
+    engine: str
+    verdicts: tuple[tuple[str, str], ...]  # (rule name, "met"/"not met")
+
+    @classmethod
+    def of(cls, result: PairResult) -> FitSummary:
+        return cls(model=result.model, name=MODEL_NAMES[result.model], median=result.rho.median,
+                   lower=result.rho.lower, upper=result.rho.upper, status=result.status, engine=result.engine,
+                   verdicts=tuple((rule.name, rule.verdict) for rule in result.rules))
+
+
+@dataclass(frozen=True)
+class ModelChoice:
+    leading: str  # the model whose numbers lead
+    requested: str  # the spec's model for the pair: normal, student_t, rank or auto
+    sentence: str
+    others: tuple[FitSummary, ...]
+    robust: FitSummary | None  # the robust fit when one ran (results.csv's robust_rho_* columns)
+    agrees: bool  # the robust fit's median is within the influence threshold of the normal one's
+
+    @property
+    def robust_differs(self) -> bool:
+        return self.robust is not None and not self.agrees
+
+
+def _interval(fit: FitSummary) -> str:
+    return (f"median {interpret.format_rho(fit.median)}, interval {interpret.format_rho(fit.lower)} to "
+            f"{interpret.format_rho(fit.upper)}")
+
+
+def _verdict_change(leading: PairResult, other: FitSummary) -> str:
+    changed = [name for (name, verdict), rule in zip(other.verdicts, leading.rules, strict=True)
+               if verdict != rule.verdict]
+    if not changed:
+        return ""
+    names = ", ".join(f"\u201c{n}\u201d" for n in changed)
+    return f" The verdict on {names} differs between the two fits."
+
+
+def choose(
+    requested: str, normal: PairResult, robust: PairResult | None, rank: PairResult | None,
+    checks: ModelChecks, *, agreement: float,
+) -> tuple[PairResult, ModelChoice]:
+    """The leading result and the choice that explains it.
+
+    ``agreement``: the largest gap between the robust and the normal medians still called agreement
+    (the spec's influence threshold, so "agrees" means what "influential" means).
+    """
+    alternative = robust if robust is not None else rank
+    agrees = alternative is None or abs(alternative.rho.median - normal.rho.median) <= agreement
+    flagged = [w.code for w in checks.warnings if w.code in ("influential_rows", "outliers", "not_normal",
+                                                             "ppc_skew", "heavy_tails")]
+    reasons = interpret.joined([CHECK_PHRASES[code] for code in flagged])
+    if requested == "auto" and alternative is not None and checks.flags_normal:
+        leading, other = alternative, normal
+        sentence = (f"The {MODEL_NAMES[alternative.model]} fit leads because {reasons}; the normal model gives "
+                    f"{_interval(FitSummary.of(normal))}.")
+    elif requested == "auto" and alternative is not None:
+        leading, other = normal, alternative
+        word = "agrees" if agrees else "differs"
+        sentence = (f"The normal fit leads: the checks found no outlying or influential rows and no clear "
+                    f"departure from its shape. The {MODEL_NAMES[alternative.model]} fit {word} "
+                    f"({_interval(FitSummary.of(alternative))}).")
+    elif requested in ("student_t", "rank") and alternative is not None:
+        leading, other = alternative, normal
+        basis = "the exact engine" if normal.engine == "exact" else "the sampler"
+        sentence = (f"The spec asks for the {MODEL_NAMES[alternative.model]} model; the normal model "
+                    f"(by {basis}) gives {_interval(FitSummary.of(normal))}.")
+    else:
+        leading, other = normal, None
+        sentence = ""
+        if checks.flags_normal:
+            sentence = (f"The checks flag the normal model ({reasons}): consider model = \"auto\" or "
+                        "\"student_t\", which would show a robust fit beside this one.")
+    others = (FitSummary.of(other),) if other is not None else ()
+    if other is not None:
+        sentence += _verdict_change(leading, others[0])
+    if leading.model == "student_t" and "nu" in leading.parameters:
+        nu = leading.parameters["nu"]
+        sentence += " " + interpret.tails_sentence(nu.median, nu.lower, nu.upper)
+    elif robust is not None and "nu" in robust.parameters and leading is normal:
+        nu = robust.parameters["nu"]
+        sentence += " " + interpret.tails_sentence(nu.median, nu.lower, nu.upper)
+    choice = ModelChoice(
+        leading=leading.model, requested=requested, sentence=sentence.strip(), others=others,
+        robust=FitSummary.of(alternative) if alternative is not None else None, agrees=agrees)
+    return leading, choice
+
+
+CHECK_PHRASES = {
+    "influential_rows": "single rows move the normal model's \u03c1 by more than the threshold",
+    "outliers": "some rows lie further out than a bivariate normal distribution allows",
+    "not_normal": "Mardia's tests reject a bivariate normal shape",
+    "ppc_skew": "the normal model does not reproduce the skewed margins",
+    "heavy_tails": "the robust fit finds clearly heavier tails than normal",
+}
+
+
+def nu_is_heavy(robust: PairResult | None) -> bool:
+    """The robust fit's nu is clearly small: its upper interval end below 10."""
+    if robust is None or "nu" not in robust.parameters:
+        return False
+    return bool(np.isfinite(robust.parameters["nu"].upper) and robust.parameters["nu"].upper < 10)

@@ -1,0 +1,69 @@
+"""The rows of results.csv: fixed columns first, then further columns, then one p_<rule> per rule."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from reportgen.results.pair import PairResult, RunResults
+
+CSV_COLUMNS = (
+    "pair", "x", "y", "n", "n_dropped", "sample_r", "rho_mean", "rho_median", "rho_sd",
+    "rho_lower", "rho_upper", "rhat_max", "ess_bulk_min", "ess_tail_min", "divergences", "status",
+)
+
+
+MODEL_CHECK_COLUMNS = (
+    "model", "nu_median", "robust_rho_median", "robust_rho_lower", "robust_rho_upper", "influence_max",
+    "influential_rows", "normality_p", "ppc_p_r", "prior_sensitive", "model_warnings",
+)
+
+
+def _number(value: float) -> str:
+    return repr(float(value)) if np.isfinite(value) else ""
+
+
+def model_check_cells(pair: PairResult) -> list[str]:
+    """The model, the robust fit and the checks of one pair, in MODEL_CHECK_COLUMNS order."""
+    robust = pair.choice.robust if pair.choice is not None else None
+    nu = pair.parameters.get("nu")
+    checks = pair.checks
+    return [
+        pair.model,
+        _number(nu.median) if nu is not None else "",
+        *((_number(robust.median), _number(robust.lower), _number(robust.upper)) if robust else ("", "", "")),
+        _number(checks.influence.max_shift) if checks else "",
+        ";".join(str(row) for row in checks.influence.flagged_rows) if checks else "",
+        _number(checks.shape.normality_p) if checks else "",
+        _number(checks.predictive.p_r) if checks else "",
+        ("true" if pair.sensitivity.prior_sensitive else "false") if pair.sensitivity else "",
+        ";".join(checks.codes) if checks else "",
+    ]
+
+
+def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
+    """The rows of results.csv: the fixed columns, then extras, then one p_<rule> per rule."""
+    rule_names = results.rule_names
+    interval_text = f"{results.interval_kind} {results.credible_mass:g}"
+    header = [*CSV_COLUMNS, "p_positive", "p_rope", "rope_decision", "interval",
+              "fisher_lower", "fisher_upper", "p_value", "seed", "status_reasons",
+              "exact_mean", "exact_sd", "exact_mean_gap", "log_bf10", "savage_dickey_bf10", "engine",
+              *MODEL_CHECK_COLUMNS, *[f"p_{name}" for name in rule_names]]
+    rows: list[list[object]] = []
+    for pair in results.pairs:
+        rho = pair.rho
+        d = pair.diagnosis
+        rows.append([
+            pair.key, pair.x, pair.y, pair.n, pair.n_dropped, repr(pair.reference.r),
+            repr(rho.mean), repr(rho.median), repr(rho.sd), repr(rho.lower), repr(rho.upper),
+            *(("", "", "") if pair.engine == "exact" else
+              (f"{d.rhat_max:.4f}", f"{d.ess_bulk_min:.0f}", f"{d.ess_tail_min:.0f}")), d.divergences,
+            pair.status, repr(pair.p_positive), repr(pair.rope_probability), pair.rope_decision,
+            interval_text, repr(pair.reference.ci_lower), repr(pair.reference.ci_upper),
+            repr(pair.reference.p_value), "" if pair.seed is None else pair.seed, "; ".join(d.reasons),
+            repr(pair.crosscheck.exact_mean), repr(pair.crosscheck.exact_sd), repr(pair.crosscheck.mean_gap),
+            repr(pair.crosscheck.log_bf10), repr(pair.crosscheck.savage_dickey_bf10), pair.engine,
+            *model_check_cells(pair), *[repr(rule.probability) for rule in pair.rules],
+        ])
+    return header, rows
+
+
