@@ -139,6 +139,8 @@ def checks_context(result: PairResult) -> dict[str, Any]:
         "distance_figure": distance_figure(result),
         "sensitivity_rows": sensitivity_rows(result),
         "sensitivity_sentence": (
+            "The spec sets no decision rules, so the table shows how the median and interval of \u03c1 move."
+            if not result.rules else
             "Under every alternative prior tried, each rule keeps its verdict." if not changed else
             "The verdict on " + interpret.joined([f"\u201c{name}\u201d" for name in changed])
             + " changes under at least one alternative prior (marked): it rests on the choice of prior as well "

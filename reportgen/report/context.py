@@ -31,6 +31,14 @@ PARAMETER_TITLES = {
 }
 
 
+def parameter_title(name: str, model: str) -> tuple[str, str]:
+    """Symbol and meaning; under the Student-t model sigma is a scale, not the SD (that is sigma sqrt(nu/(nu-2)))."""
+    symbol, meaning = PARAMETER_TITLES[name]
+    if model == "student_t" and name.startswith("sigma"):
+        meaning = meaning.replace("SD of", "scale of")
+    return symbol, meaning
+
+
 def _unit_suffix(unit: str) -> str:
     return f" ({unit})" if unit else ""
 
@@ -60,7 +68,7 @@ def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, st
     )
     panels = []
     for name, summary in result.parameters.items():
-        symbol, meaning = PARAMETER_TITLES[name]
+        symbol, meaning = parameter_title(name, result.model)
         unit = {"mu_x": result.x_unit, "sigma_x": result.x_unit,
                 "mu_y": result.y_unit, "sigma_y": result.y_unit}.get(name, "")
         title = f"{symbol}: {meaning.format(x=result.x_label, y=result.y_label)}"
@@ -105,7 +113,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
     rows = []
     diagnostics = {p.name: p for p in result.diagnosis.parameters}
     for name, summary in result.parameters.items():
-        symbol, meaning = PARAMETER_TITLES[name]
+        symbol, meaning = parameter_title(name, result.model)
         unit = {"mu_x": result.x_unit, "sigma_x": result.x_unit,
                 "mu_y": result.y_unit, "sigma_y": result.y_unit}.get(name, "")
         d = diagnostics.get(name)
