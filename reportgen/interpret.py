@@ -263,8 +263,9 @@ def rank_model_sentence() -> str:
 
 
 def no_reference_sentence() -> str:
-    return ("The robust (Student-t) model has no exact reference to compare with: the exact posterior is the "
-            "normal model's. Its numbers rest on the sampler's convergence checks alone.")
+    return ("Here \u03c1 is the correlation of the bivariate t distribution's scale matrix, which is Pearson's "
+            "correlation whenever \u03bd > 2. The robust model has no exact reference to compare with: the exact "
+            "posterior is the normal model's, so these numbers rest on the sampler's convergence checks alone.")
 
 
 def tails_sentence(nu_median: float, nu_lower: float, nu_upper: float) -> str:

@@ -123,13 +123,15 @@ def _normality_warning(shape: Shape, level: float) -> ModelWarning | None:
         "this with the scatter plot."))
 
 
-def _discrete_warning(code: str, label: str, found: Discreteness) -> ModelWarning | None:
+def _discrete_warning(code: str, label: str, found: Discreteness, rank_model: bool) -> ModelWarning | None:
     if not found.discrete:
         return None
+    advice = ("the rank model used here suits such data" if rank_model
+              else "the rank model (model = \"rank\") suits such data")
     return ModelWarning(code, (
         f"{label} takes only {found.distinct} distinct value{'' if found.distinct == 1 else 's'} "
         f"({found.tied_share:.0%} of all pairs of rows tie): Pearson's correlation of "
-        "coarse or ordinal values is hard to read, and the rank model (model = \"rank\") suits such data."))
+        f"coarse or ordinal values is hard to read, and {advice}."))
 
 
 def _predictive_warnings(check: PredictiveCheck, level: float, x_label: str, y_label: str) -> list[ModelWarning]:
@@ -152,7 +154,7 @@ def _predictive_warnings(check: PredictiveCheck, level: float, x_label: str, y_l
 def model_checks(
     x: np.ndarray, y: np.ndarray, row_numbers: np.ndarray, *, x_label: str, y_label: str,
     rho_prior: tuple[float, float], rules: Sequence[Rule], settings: Checks, normal_rho_draws: np.ndarray,
-    seed: int,
+    seed: int, rank_model: bool = False,
 ) -> ModelChecks:
     """Run every check of the normal model on one pair's complete rows."""
     influence = leave_one_out(x, y, row_numbers, rho_prior[0], rho_prior[1], rules,
@@ -165,8 +167,8 @@ def model_checks(
         _influence_warning(influence, settings.influence_shift),
         _outlier_warning(shape, settings.outlier_level),
         _normality_warning(shape, settings.normality_level),
-        _discrete_warning(DISCRETE_X, x_label, discrete_x),
-        _discrete_warning(DISCRETE_Y, y_label, discrete_y),
+        _discrete_warning(DISCRETE_X, x_label, discrete_x, rank_model),
+        _discrete_warning(DISCRETE_Y, y_label, discrete_y, rank_model),
         *_predictive_warnings(predictive, settings.predictive_level, x_label, y_label),
     ]
     return ModelChecks(influence=influence, shape=shape, discrete_x=discrete_x, discrete_y=discrete_y,

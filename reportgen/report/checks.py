@@ -130,6 +130,7 @@ def checks_context(result: PairResult) -> dict[str, Any]:
     changed = sensitivity.changed_rules if sensitivity is not None else ()
     return {
         "model_name": MODEL_NAMES[result.model],
+        "has_flagged_rows": bool(highlighted_rows(result)[0].size),
         "model_short": MODEL_SHORT_NAMES[result.model],
         "choice_sentence": choice.sentence if choice is not None else "",
         "others": others,

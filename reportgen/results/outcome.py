@@ -63,9 +63,10 @@ def _sensitivity(spec: Spec, data: PairData, leading: PairResult, fit: PairFit |
     document = spec.document
     variants = prior_variants(spec, data)
     mass, interval = document.summary.credible_mass, document.summary.interval
-    if leading.model == "rank":
-        return sensitivity_from_posterior(lambda a, b: rank_posterior(data.x, data.y, a, b), variants,
-                                          document.rules, mass, interval)
+    if leading.model == "rank":  # ranks have no means or SDs, so only the prior on rho can change
+        return sensitivity_from_posterior(lambda a, b: rank_posterior(data.x, data.y, a, b),
+                                          tuple(v for v in variants if v.width == 1.0), document.rules, mass,
+                                          interval)
     if fit is None:  # the exact engine (or its fallback)
         n, r = data.stats.n, float(np.clip(data.stats.sample_r, -R_LIMIT, R_LIMIT))
         return sensitivity_from_posterior(lambda a, b: exact.exact_posterior(n, r, a, b), variants,
@@ -94,17 +95,17 @@ def pair_outcome(spec: Spec, data: PairData, fits: dict[str, PairFit], failures:
         data.x, data.y, data.row_numbers, x_label=spec.display_name(data.pair.x),
         y_label=spec.display_name(data.pair.y), rho_prior=data.pair.priors.rho.shapes, rules=document.rules,
         settings=document.checks, normal_rho_draws=_normal_rho_draws(normal, normal_fit, data),
-        seed=derive_seed(document.sampler.seed, data.pair.x, data.pair.y, "checks"))
+        seed=derive_seed(document.sampler.seed, data.pair.x, data.pair.y, "checks"), rank_model=requested == "rank")
     if robust is not None and nu_is_heavy(robust):
         checks = checks.with_warning(ModelWarning(HEAVY_TAILS, (
             f"The robust fit finds heavy tails (degrees of freedom below {robust.parameters['nu'].upper:.1f} with "
             f"{document.summary.credible_mass:.0%} probability): rows far from the rest are more common than a "
             "normal distribution allows.")))
     leading, choice = choose(requested, normal, robust, rank, checks, agreement=document.checks.influence_shift)
-    if choice.robust_differs:
+    if choice.robust_differs and choice.robust is not None:
         checks = checks.with_warning(ModelWarning(ROBUST_DIFFERS, (
-            f"The normal and the robust fit disagree by more than {document.checks.influence_shift:g} in the "
-            "median of \u03c1: the conclusion depends on the model.")))
+            f"The normal and the {choice.robust.name} fit disagree by more than "
+            f"{document.checks.influence_shift:g} in the median of \u03c1: the conclusion depends on the model.")))
     leading_fit = fits.get(leading.model) if leading.model in ("normal", "student_t") else None
     sensitivity = _sensitivity(spec, data, leading, leading_fit)
     if sensitivity.prior_sensitive:
