@@ -30,6 +30,7 @@ sample-reports: $(STAMP)
 bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_fit.py
 	$(BIN)/python benchmarks/bench_pairs.py
+	$(BIN)/python benchmarks/bench_student_t.py
 
 sbc: $(STAMP)
 	$(BIN)/python benchmarks/sbc.py

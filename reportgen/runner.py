@@ -112,7 +112,8 @@ def fit_all(
         started = time.perf_counter()
         done: dict[str, PairFit] = {}
         failures: dict[str, str] = {}
-        for model in sampled_models(spec.document.engine, pair.pair.model):
+        for model in sampled_models(spec.document.engine, pair.pair.model, pair.stats.n,
+                                    spec.document.checks.student_t_max_rows):
             try:
                 done[model] = fitter.fit(pair, spec.document.sampler.seed, model)
             except Exception as exc:  # one pair's sampler crashing must not sink the other pairs

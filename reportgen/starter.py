@@ -109,6 +109,7 @@ normality_level = {checks.normality_level}      # Mardia's skewness or kurtosis 
 discrete_max_distinct = {checks.discrete_max_distinct}  # a column with this many distinct values or fewer is coarse
 discrete_tied_share = {checks.discrete_tied_share}   # ... as is one where this share of pairs of rows is tied
 predictive_level = {checks.predictive_level}     # replicated data that rarely look like the data flag the model
+student_t_max_rows = {checks.student_t_max_rows}  # model = "auto": above this many rows the rank model is robust fit
 
 # The alternative priors each pair's interval and verdicts are tried under.
 [sensitivity]

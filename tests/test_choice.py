@@ -116,3 +116,15 @@ def test_tails_sentence_bands() -> None:
     assert "clearly heavier tails" in interpret.tails_sentence(3.0, 1.8, 6.0)
     assert "somewhat heavier" in interpret.tails_sentence(12.0, 4.0, 40.0)
     assert "close to those of a normal" in interpret.tails_sentence(35.0, 10.0, 120.0)
+
+
+def test_auto_uses_the_rank_model_above_the_row_limit() -> None:
+    """The Student-t likelihood needs every row (benchmarks/bench_student_t.py: about 6 s a pair at 10,000 rows),
+    so above checks.student_t_max_rows the rank model is the robust fit (common practice: bound the cost)."""
+    from reportgen.results.outcome import rank_is_robust_fit, sampled_models
+
+    assert sampled_models("mcmc", "auto", 500, 20_000) == ("normal", "student_t")
+    assert sampled_models("mcmc", "auto", 50_000, 20_000) == ("normal",)
+    assert rank_is_robust_fit("mcmc", "auto", 50_000, 20_000)
+    assert sampled_models("mcmc", "student_t", 50_000, 20_000) == ("normal", "student_t")  # asked for: honoured
+    assert sampled_models("exact", "auto", 500, 20_000) == () and rank_is_robust_fit("exact", "auto", 500, 20_000)

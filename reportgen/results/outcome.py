@@ -25,11 +25,21 @@ from reportgen.spec import Spec
 PREDICTIVE_DRAWS = 1000
 
 
-def sampled_models(engine: str, model: str) -> tuple[str, ...]:
-    """The sampled models a pair needs: none with the exact engine or the rank model."""
+def sampled_models(engine: str, model: str, n: int = 0, student_t_max_rows: int = 20_000) -> tuple[str, ...]:
+    """The sampled models a pair needs: none with the exact engine or the rank model.
+
+    Under ``auto`` a pair of more than ``student_t_max_rows`` rows gets the rank model as its robust fit.
+    """
     if engine == "exact" or model == "rank":
         return ()
-    return ("normal", "student_t") if model in ("student_t", "auto") else ("normal",)
+    if model == "student_t" or (model == "auto" and n <= student_t_max_rows):
+        return ("normal", "student_t")
+    return ("normal",)
+
+
+def rank_is_robust_fit(engine: str, model: str, n: int, student_t_max_rows: int) -> bool:
+    """Under ``auto``, the rank model is the robust fit with the exact engine or above the row limit."""
+    return model == "auto" and (engine == "exact" or n > student_t_max_rows)
 
 
 def prior_variants(spec: Spec, data: PairData) -> tuple[PriorVariant, ...]:
@@ -89,8 +99,8 @@ def pair_outcome(spec: Spec, data: PairData, fits: dict[str, PairFit], failures:
     robust_failure = failures.get("student_t", "")
     if "student_t" in fits:
         robust = pair_result(spec, data, fits["student_t"])
-    rank = pair_result_rank(spec, data) if requested == "rank" or (
-        requested == "auto" and document.engine == "exact") else None
+    rank = pair_result_rank(spec, data) if requested == "rank" or rank_is_robust_fit(
+        document.engine, requested, data.stats.n, document.checks.student_t_max_rows) else None
     checks = model_checks(
         data.x, data.y, data.row_numbers, x_label=spec.display_name(data.pair.x),
         y_label=spec.display_name(data.pair.y), rho_prior=data.pair.priors.rho.shapes, rules=document.rules,
