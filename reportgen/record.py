@@ -112,6 +112,11 @@ def build_record(
             "seed": fit.seed if fit else pair.seed,
             "draws_sha256": draws_sha256(fit) if fit else None,
             "model": pair.model,
+            "model_requested": pair.choice.requested if pair.choice is not None else pair.model,
+            "model_warnings": list(pair.checks.codes) if pair.checks is not None else [],
+            "influential_rows": ([int(r) for r in pair.checks.influence.flagged_rows]
+                                 if pair.checks is not None else []),
+            "prior_sensitive_rules": list(pair.sensitivity.changed_rules) if pair.sensitivity is not None else [],
             "robust_seed": robust.seed if robust else None,
             "robust_draws_sha256": draws_sha256(robust) if robust else None,
             "status": d.status,
