@@ -111,7 +111,7 @@ def main() -> None:
         measured["student_t", n] = seconds_per_pair(fitter, "student_t", n, args.pairs)
 
     large = SIZES[-1]
-    reduced = Fitter(Sampler(draws=args.large_draws, tune=args.large_draws, chains=fitter.cores))
+    reduced = Fitter(Sampler(draws=args.large_draws, tune=args.large_draws, chains=max(2, fitter.cores)))
     pair = make_pair(*simulate(large, 100), "reduced")
     started = time.perf_counter()
     reduced.fit(pair, 1, model="student_t")

@@ -11,7 +11,8 @@ import logging
 import os
 import sys
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from functools import wraps
 from pathlib import Path
 from typing import Any, TypeVar
@@ -64,6 +65,31 @@ def main(debug: bool) -> None:
     _quiet_libraries()
 
 
+def _stdout_to_devnull() -> None:
+    """Point stdout at the null device, so that Python's flush at exit cannot fail again (exit 120)."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+    except (OSError, ValueError):  # no file descriptor behind stdout (a test runner's capture)
+        pass
+
+
+@contextmanager
+def _stdout_may_fail() -> Iterator[None]:
+    """Printing the summary comes after the work is done: a stdout that is closed (``| head``) or full
+    (``> /dev/full``) must change neither the outcome nor the exit code, and print no traceback."""
+    try:
+        yield
+        sys.stdout.flush()
+    except OSError:  # BrokenPipeError, or ENOSPC
+        _stdout_to_devnull()
+        try:
+            click.echo("reportgen: stdout is closed or full, so the summary was not printed", err=True)
+        except OSError:
+            pass
+
+
 def _progress_printer() -> Callable[[str, int, int], None] | None:
     if not sys.stderr.isatty():
         return None
@@ -98,10 +124,11 @@ def _load(spec_path: Path, engine: str | None = None, model: str | None = None, 
 def _report_outcome(outcome: Any) -> None:
     results = outcome.results
     draws = ", draws/" if any(p.engine == "mcmc" for p in results.pairs) else ""
-    click.echo(f"wrote {outcome.out_dir}/report.html, report.pdf, results.csv, record.json{draws}")
-    for pair in results.pairs:
-        click.echo(f"  {pair.status:4}  {pair.key}: median rho {pair.rho.median:+.3f} "
-                   f"[{pair.rho.lower:+.3f}, {pair.rho.upper:+.3f}], n = {pair.n}")
+    with _stdout_may_fail():
+        click.echo(f"wrote {outcome.out_dir}/report.html, report.pdf, results.csv, record.json{draws}")
+        for pair in results.pairs:
+            click.echo(f"  {pair.status:4}  {pair.key}: median rho {pair.rho.median:+.3f} "
+                       f"[{pair.rho.lower:+.3f}, {pair.rho.upper:+.3f}], n = {pair.n}")
     if results.status == "fail":
         names = ", ".join(p.key for p in results.failed)
         click.echo(f"reportgen: {len(results.failed)} pair(s) failed the convergence checks: {names}", err=True)
@@ -156,11 +183,12 @@ def check_command(spec_path: Path) -> None:
 
     prepared = prepare(_load(spec_path))
     encoding = f", read as {prepared.table.encoding}" if prepared.table.encoding else ""
-    click.echo(f"{spec_path}: spec and data are valid; {len(prepared.pairs)} pair(s) "
-               f"from {prepared.table.n_rows:,} rows of {prepared.table.path.name}{encoding}")
-    for pair in prepared.pairs:
-        dropped = f", {pair.n_dropped} dropped for missing values" if pair.n_dropped else ""
-        click.echo(f"  {pair.pair.key}: n = {pair.stats.n}{dropped}")
+    with _stdout_may_fail():
+        click.echo(f"{spec_path}: spec and data are valid; {len(prepared.pairs)} pair(s) "
+                   f"from {prepared.table.n_rows:,} rows of {prepared.table.path.name}{encoding}")
+        for pair in prepared.pairs:
+            dropped = f", {pair.n_dropped} dropped for missing values" if pair.n_dropped else ""
+            click.echo(f"  {pair.pair.key}: n = {pair.stats.n}{dropped}")
 
 
 @main.command("demo")
@@ -185,26 +213,39 @@ def demo_command(out: Path, engine: str | None, model: str | None, **overrides: 
 def init_command(data_path: Path, pairs: tuple[tuple[str, str], ...], output: Path, title: str,
                  force: bool) -> None:
     """Write a commented starter spec for DATA with the given pairs."""
-    from reportgen.spec import load_spec
-    from reportgen.starter import relative_data_path, starter_spec
+    from reportgen.runner import prepare
+    from reportgen.starter import check_title, name_the_options, relative_data_path, starter_as_spec, starter_spec
 
+    if output.is_dir():
+        raise SpecError(f"{output}: is a folder; give -o the path of the spec file to write, "
+                        f"e.g. {output / 'spec.toml'}")
     if output.exists() and not force:
         raise SpecError(f"{output}: already exists; choose another -o path or add --force")
     if not data_path.is_file():
         raise SpecError(f"{data_path}: data file not found; give the path to a CSV, Excel or Parquet file")
-    text = starter_spec(relative_data_path(data_path, output), [tuple(p) for p in pairs], title)
-    output.parent.mkdir(parents=True, exist_ok=True)
-    temporary = output.with_name(output.name + ".tmp")
-    temporary.write_text(text, encoding="utf-8")
+    check_title(title)
+    chosen = [(x, y) for x, y in pairs]
+    text = starter_spec(relative_data_path(data_path, output), chosen, title)
     try:
-        from reportgen.runner import prepare
-
-        prepare(load_spec(temporary))
+        prepare(starter_as_spec(text, output))  # checked in memory: a refused spec leaves no file behind
     except ReportgenError as exc:
-        temporary.unlink()
-        raise SpecError(str(exc).replace(str(temporary.resolve()), str(output))) from None
-    os.replace(temporary, output)
-    click.echo(f"wrote {output}; edit it, then run: reportgen run {output} --out REPORT_FOLDER")
+        raise type(exc)(name_the_options(str(exc), chosen, output)) from None
+    _write_atomically(output, text)
+    with _stdout_may_fail():
+        click.echo(f"wrote {output}; edit it, then run: reportgen run {output} --out REPORT_FOLDER")
+
+
+def _write_atomically(output: Path, text: str) -> None:
+    """Write ``text`` to ``output`` through a hidden temporary file beside it, removed if anything fails."""
+    temporary = output.with_name(f".{output.name}.{os.getpid()}.tmp")
+    try:
+        output.parent.mkdir(parents=True, exist_ok=True)
+        temporary.write_text(text, encoding="utf-8")
+        os.replace(temporary, output)
+    except OSError as exc:
+        temporary.unlink(missing_ok=True)
+        raise SpecError(f"{output}: the spec cannot be written there ({exc.strerror or type(exc).__name__}); "
+                        "choose another -o path or check the folder's permissions") from None
 
 
 if __name__ == "__main__":  # pragma: no cover

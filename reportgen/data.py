@@ -10,6 +10,15 @@ frame's index holds each row's line number in the CSV file (header = line 1,
 so a quoted value spanning lines counts from its first line), its row number
 on the Excel sheet, or its position (from 1) in a Parquet file.
 
+Column names are matched in Unicode normal form C (NFC, Unicode Standard
+Annex #15, Davis and Whistler): a spec typed with a composed "é" finds a
+header saved with "e" plus a combining accent. Messages keep each side's own
+spelling. Excel cells are read as a CSV file's would be: a formula's saved
+value is read, and a formula error or a formula whose value was never saved is
+refused with the cell's address, as text is. A nonzero number written so
+small that it would be stored as 0 (``1e-400``) is refused like ``1e400``;
+subnormal numbers (down to about 5e-324) are kept, because they are nonzero.
+
 A CSV file larger than ``STREAM_THRESHOLD`` is not held: it is read row by
 row and only the columns the pairs need are kept, parsed to floats as they are
 read (``Table.parsed``), with the same rules, results and messages. A Parquet
@@ -21,14 +30,19 @@ from __future__ import annotations
 import codecs
 import csv
 import difflib
+import errno
 import hashlib
 import io
 import operator
 import re
+import stat
+import unicodedata
+import warnings
+import zipfile
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import BinaryIO
+from typing import Any, BinaryIO
 
 import numpy as np
 import pandas as pd
@@ -111,6 +125,7 @@ class ParsedColumn:
     bad: tuple[tuple[int, str], ...] = ()  # the first three non-numeric cells: (line, cell as written)
     n_bad: int = 0
     infinite: tuple[int, str] | None = None  # the first infinite or out-of-range cell
+    tiny: tuple[int, str] | None = None  # the first nonzero number that would be stored as 0
 
 
 @dataclass(frozen=True)
@@ -173,8 +188,19 @@ def _line_of(data: bytes, offset: int) -> int:
     return data[:offset].count(b"\n") + 1
 
 
-def _utf16_error(path: Path) -> DataError:
-    return DataError(f"{path}: starts like UTF-16 text but is not valid UTF-16; re-save the file as UTF-8")
+def _bom_encoding(data: bytes) -> str:
+    """The encoding a UTF-32 or UTF-16 byte-order mark announces, or "" without one. UTF-32's little-endian
+    mark begins with UTF-16's, so it is looked for first."""
+    if data.startswith((codecs.BOM_UTF32_LE, codecs.BOM_UTF32_BE)):
+        return "utf-32"
+    if data.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+        return "utf-16"
+    return ""
+
+
+def _unicode_error(path: Path, encoding: str) -> DataError:
+    name = encoding.upper()
+    return DataError(f"{path}: starts like {name} text but is not valid {name}; re-save the file as UTF-8")
 
 
 def _nul_error(path: Path) -> DataError:
@@ -190,17 +216,18 @@ def _mixed_error(path: Path, line: int, byte: int) -> DataError:
 def _decode(path: Path, data: bytes) -> tuple[str, str]:
     """The encoding that decodes the whole file, and the text (without a byte-order mark).
 
-    UTF-8 first (with or without a BOM), UTF-16 when it starts with a UTF-16
-    BOM (Excel's "Unicode text"), then cp1252 and latin-1 for files that have
+    UTF-8 first (with or without a BOM), UTF-32 or UTF-16 when it starts with
+    their BOM (UTF-16 is Excel's "Unicode text"), then cp1252 and latin-1 for files that have
     no UTF-8 at all. A file that is UTF-8 in one place and not in another is
     refused rather than guessed at. ``_stream_encoding`` makes the same choice
     block by block.
     """
-    if data.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+    announced = _bom_encoding(data)
+    if announced:
         try:
-            return "utf-16", data.decode("utf-16")
+            return announced, data.decode(announced)
         except UnicodeDecodeError:
-            raise _utf16_error(path) from None
+            raise _unicode_error(path, announced) from None
     if b"\x00" in data[:65536]:
         raise _nul_error(path)
     encoding = "utf-8-sig" if data.startswith(codecs.BOM_UTF8) else "utf-8"
@@ -248,15 +275,16 @@ def _stream_encoding(path: Path) -> str:
     try:
         with path.open("rb") as handle:
             first = handle.read(max(BLOCK_BYTES, 65536))  # the NUL check looks at 64 KiB
-            if first.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
-                decoder = codecs.getincrementaldecoder("utf-16")()
+            announced = _bom_encoding(first)
+            if announced:
+                decoder = codecs.getincrementaldecoder(announced)()
                 try:
                     for block in _blocks(handle, first):
                         decoder.decode(block)
                     decoder.decode(b"", final=True)
                 except UnicodeDecodeError:
-                    raise _utf16_error(path) from None
-                return "utf-16"
+                    raise _unicode_error(path, announced) from None
+                return announced
             if b"\x00" in first[:65536]:
                 raise _nul_error(path)
             signed = first.startswith(codecs.BOM_UTF8)
@@ -325,19 +353,44 @@ def _is_blank(row: list[str]) -> bool:
     return not row or (len(row) == 1 and not row[0].strip())
 
 
+def _nfc(name: str) -> str:
+    return unicodedata.normalize("NFC", name)
+
+
+def _nfc_lookup(names: Iterable[str]) -> dict[str, str]:
+    """Each name by its NFC form; header names are unique in that form, so nothing is lost."""
+    return {_nfc(name): name for name in names}
+
+
 def _header_names(cells: list[object], where: str, path: Path) -> list[str]:
-    """Column names from a header row: stripped, unnamed cells named like pandas does, no repeats."""
-    names = []
-    for index, cell in enumerate(cells):
+    """Column names from a header row: stripped, no repeats (also none that differ only in Unicode form), a
+    blank cell named `Unnamed: <position from 0>` like pandas does, or `Unnamed: 0.1` when the header already
+    has a column called `Unnamed: 0` (a file saved twice with its row index)."""
+    texts = []
+    for cell in cells:
         text = "" if cell is None or (isinstance(cell, float) and np.isnan(cell)) else str(cell)
-        text = text.strip().lstrip("\ufeff").strip()
-        names.append(text or f"Unnamed: {index}")
+        texts.append(text.strip().lstrip("\ufeff").strip())
+    taken = {_nfc(text) for text in texts if text}
+    names = []
+    for index, text in enumerate(texts):
+        if not text:
+            text, copy = f"Unnamed: {index}", 0
+            while text in taken:
+                copy += 1
+                text = f"Unnamed: {index}.{copy}"
+            taken.add(text)
+        names.append(text)
     first_seen: dict[str, int] = {}
     for index, name in enumerate(names):
-        if name in first_seen:
+        earlier = first_seen.get(_nfc(name))
+        if earlier is not None and names[earlier] == name:
             raise DataError(f"{path}: the column name `{name}` appears more than once in the header ({where}, "
-                            f"columns {first_seen[name] + 1} and {index + 1}); rename one")
-        first_seen[name] = index
+                            f"columns {earlier + 1} and {index + 1}); rename one")
+        if earlier is not None:
+            raise DataError(f"{path}: columns {earlier + 1} and {index + 1} of the header ({where}) are both named "
+                            f"`{name}`, written with different Unicode characters (an accent stored as part of "
+                            "its letter in one, as a separate mark in the other); rename one")
+        first_seen[_nfc(name)] = index
     return names
 
 
@@ -434,9 +487,10 @@ class _ColumnParser:
         self.bad: list[tuple[int, str]] = []
         self.n_bad = 0
         self.infinite: tuple[int, str] | None = None
+        self.tiny: tuple[int, str] | None = None
 
     def add(self, cells: list[str], lines: list[int]) -> None:
-        values, bad_mask = _parse_cells(pd.Series(cells, dtype=object))
+        values, bad_mask, tiny_mask = _parse_cells(pd.Series(cells, dtype=object))
         self.blocks.append(values)
         bad = np.flatnonzero(bad_mask)
         self.n_bad += bad.size
@@ -444,11 +498,15 @@ class _ColumnParser:
         infinite = np.flatnonzero(np.isinf(values))
         if self.infinite is None and infinite.size:
             self.infinite = (lines[infinite[0]], cells[infinite[0]])
+        tiny = np.flatnonzero(tiny_mask)
+        if self.tiny is None and tiny.size:
+            self.tiny = (lines[tiny[0]], cells[tiny[0]])
 
     def result(self) -> ParsedColumn:
         values = np.concatenate(self.blocks)
         self.blocks.clear()
-        return ParsedColumn(values=values, bad=tuple(self.bad), n_bad=self.n_bad, infinite=self.infinite)
+        return ParsedColumn(values=values, bad=tuple(self.bad), n_bad=self.n_bad, infinite=self.infinite,
+                            tiny=self.tiny)
 
 
 def _stream_csv(path: Path, wanted: tuple[str, ...]) -> tuple[pd.DataFrame, list[str], dict[str, ParsedColumn],
@@ -470,7 +528,8 @@ def _stream_csv(path: Path, wanted: tuple[str, ...]) -> tuple[pd.DataFrame, list
                     raise _empty(path)
                 raise _no_rows(path)
             names = header[1]
-            kept = [name for name in wanted if name in names]
+            lookup = _nfc_lookup(names)
+            kept = list(dict.fromkeys(lookup[_nfc(name)] for name in wanted if _nfc(name) in lookup))
             getter = operator.itemgetter(*(names.index(name) for name in kept)) if kept else None
             parsers = {name: _ColumnParser() for name in kept}
             line_blocks: list[np.ndarray] = []
@@ -504,35 +563,151 @@ def _stream_csv(path: Path, wanted: tuple[str, ...]) -> tuple[pd.DataFrame, list
 # ------------------------------------------------------------------ Excel, Parquet
 
 
+OLD_EXCEL_SIGNATURE = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"  # the container of old-style .xls workbooks
+
+
+@dataclass(frozen=True)
+class SheetProblem:
+    """A sheet cell that is not blank but holds no number to read: a formula's error (``#DIV/0!``), or a
+    formula whose value was never saved (a file written by a program that does not calculate). It stays in
+    the frame, so the column's check refuses it with its address, as a CSV column's text is refused."""
+
+    address: str  # e.g. "B5"
+    text: str  # the error as the sheet shows it, or the formula
+    kind: str  # "error" or "formula"
+
+    def __str__(self) -> str:
+        return self.text
+
+    def describe(self) -> str:
+        if self.kind == "error":
+            return f"{self.address} (the error {self.text[:20]})"
+        return f"{self.address} (the formula {self.text[:20]!r}, whose value was never saved)"
+
+
+def _load_workbook(handle: BinaryIO, data_only: bool) -> Any:  # an openpyxl Workbook
+    import openpyxl
+
+    handle.seek(0)  # a handle, not the path: openpyxl would refuse a data.format = "excel" file by its suffix
+    return openpyxl.load_workbook(handle, read_only=True, data_only=data_only, keep_links=False)
+
+
+def _charts_only(path: Path) -> DataError:
+    return DataError(f"{path}: the workbook holds only chart sheets, no worksheet with a table; point "
+                     "data.path at the workbook (or a CSV export) that holds the data")
+
+
+def _unreadable_workbook(path: Path, handle: BinaryIO, exc: Exception) -> DataError:
+    """Why opening failed, as far as the file's parts tell: openpyxl fails on a chart sheet without a chart."""
+    try:
+        handle.seek(0)
+        with zipfile.ZipFile(handle) as archive:
+            parts = archive.namelist()
+    except Exception:  # not a zip archive at all
+        parts = []
+    if any(n.startswith("xl/chartsheets/") for n in parts) and not any(n.startswith("xl/worksheets/") for n in parts):
+        return _charts_only(path)
+    return DataError(f"{path}: not a readable Excel workbook ({type(exc).__name__}); re-save it from a "
+                     "spreadsheet program as .xlsx, or set data.format if it is not Excel")
+
+
+def _choose_sheet(path: Path, book: Any, sheet: str) -> str:
+    """The worksheet to read: the one data.sheet names, or the only one; chart sheets hold no table."""
+    sheets = [str(ws.title) for ws in book.worksheets]
+    charts = [str(cs.title) for cs in book.chartsheets]
+    if not sheets:
+        raise _charts_only(path)
+    listed = ", ".join(f"`{name}`" for name in sheets)
+    if sheet in charts:
+        raise DataError(f"{path}: sheet `{sheet}` (data.sheet) is a chart sheet, which holds no table; the "
+                        f"worksheets are: {listed}")
+    if sheet:
+        if sheet not in sheets:
+            close = difflib.get_close_matches(sheet, sheets, n=1, cutoff=0.5)
+            hint = f" Did you mean `{close[0]}`?" if close else ""
+            raise DataError(f"{path}: no sheet named `{sheet}` (data.sheet); the sheets are: {listed}.{hint}")
+        return sheet
+    if len(sheets) == 1:
+        return sheets[0]
+    raise DataError(f"{path}: the workbook has {len(sheets)} sheets ({listed}); name the one to use "
+                    "with data.sheet in the spec, e.g. sheet = " + repr(sheets[0]).replace("'", '"'))
+
+
+def _sheet_values(sheet: Any) -> tuple[list[list[object]], set[tuple[int, int]]]:
+    """Each sheet row's cell values (saved formula values, errors as ``SheetProblem``), and the cells that
+    are present but empty, which is how a formula without a saved value reads. A formula's saved empty text
+    (type "str") is a blank cell, not one of those."""
+    from openpyxl.cell.read_only import EMPTY_CELL
+    from openpyxl.utils import get_column_letter
+
+    sheet.reset_dimensions()  # declared dimensions can be wrong
+    rows: list[list[object]] = []
+    empty: set[tuple[int, int]] = set()
+    for row, cells in enumerate(sheet.iter_rows(), start=1):
+        values: list[object] = []
+        for column, cell in enumerate(cells, start=1):
+            value = cell.value
+            if value is None and cell is not EMPTY_CELL and cell.data_type != "str":
+                empty.add((row, column))
+            elif cell.data_type == "e":
+                value = SheetProblem(f"{get_column_letter(column)}{row}", str(value), "error")
+            values.append(value)
+        rows.append(values)
+    return rows, empty
+
+
+def _mark_unsaved_formulas(sheet: Any, rows: list[list[object]], empty: set[tuple[int, int]]) -> None:
+    """Replace the empty cells that hold a formula (read with formulas, not values) by a ``SheetProblem``."""
+    from openpyxl.utils import get_column_letter
+
+    last = max(row for row, _ in empty)
+    sheet.reset_dimensions()
+    for row, cells in enumerate(sheet.iter_rows(), start=1):
+        if row > last:
+            break
+        for column, cell in enumerate(cells, start=1):
+            if cell.data_type == "f" and (row, column) in empty:
+                formula = str(getattr(cell.value, "text", cell.value))  # array formulas keep theirs in .text
+                rows[row - 1][column - 1] = SheetProblem(f"{get_column_letter(column)}{row}", formula, "formula")
+
+
+def _excel_rows(path: Path, handle: BinaryIO, sheet: str) -> tuple[list[list[object]], str]:
+    try:
+        book = _load_workbook(handle, data_only=True)
+    except Exception as exc:  # openpyxl raises many types for a broken workbook
+        raise _unreadable_workbook(path, handle, exc) from None
+    try:
+        chosen = _choose_sheet(path, book, sheet)
+        try:
+            rows, empty = _sheet_values(book[chosen])
+            if empty:  # only then can a formula lack its value; finding one needs a second reading
+                formulas = _load_workbook(handle, data_only=False)
+                try:
+                    _mark_unsaved_formulas(formulas[chosen], rows, empty)
+                finally:
+                    formulas.close()
+        except Exception as exc:  # a damaged sheet
+            raise DataError(f"{path}: sheet `{chosen}` cannot be read as a table ({type(exc).__name__}); "
+                            "re-save the workbook from a spreadsheet program, or choose another sheet") from None
+    finally:
+        book.close()
+    return rows, chosen
+
+
 def _read_excel(path: Path, sheet: str) -> tuple[pd.DataFrame, str]:
     """The chosen sheet with its first non-empty row as the header, indexed by sheet row number."""
     try:
-        book = pd.ExcelFile(path)
-    except ImportError:
-        raise DataError(f"{path}: old-style .xls workbooks cannot be read; open it in Excel and save it as "
-                        ".xlsx (or export the sheet as CSV)") from None
-    except Exception as exc:  # openpyxl raises many types for a broken workbook
-        raise DataError(f"{path}: not a readable Excel workbook ({type(exc).__name__}); re-save it from a "
-                        "spreadsheet program as .xlsx, or set data.format if it is not Excel") from None
-    with book:
-        sheets = [str(name) for name in book.sheet_names]
-        listed = ", ".join(f"`{name}`" for name in sheets)
-        if sheet:
-            if sheet not in sheets:
-                close = difflib.get_close_matches(sheet, sheets, n=1, cutoff=0.5)
-                hint = f" Did you mean `{close[0]}`?" if close else ""
-                raise DataError(f"{path}: no sheet named `{sheet}` (data.sheet); the sheets are: {listed}.{hint}")
-            chosen = sheet
-        elif len(sheets) == 1:
-            chosen = sheets[0]
-        else:
-            raise DataError(f"{path}: the workbook has {len(sheets)} sheets ({listed}); name the one to use "
-                            "with data.sheet in the spec, e.g. sheet = " + repr(sheets[0]).replace("'", '"'))
-        try:
-            raw = pd.read_excel(book, sheet_name=chosen, header=None, dtype=object)
-        except Exception as exc:  # a chart sheet or a damaged sheet
-            raise DataError(f"{path}: sheet `{chosen}` cannot be read as a table ({type(exc).__name__}); "
-                            "choose a worksheet that holds the data") from None
+        with path.open("rb") as handle:
+            if handle.read(len(OLD_EXCEL_SIGNATURE)) == OLD_EXCEL_SIGNATURE:
+                raise DataError(f"{path}: old-style .xls workbooks cannot be read; open it in Excel and save it "
+                                "as .xlsx (or export the sheet as CSV)")
+            with warnings.catch_warnings():  # openpyxl's notes on unsupported features are not the user's
+                warnings.simplefilter("ignore")
+                rows, chosen = _excel_rows(path, handle, sheet)
+    except OSError as exc:
+        raise _unreadable(path, exc) from None
+    width = max((len(row) for row in rows), default=0)
+    raw = pd.DataFrame([row + [None] * (width - len(row)) for row in rows], dtype=object)
     raw = raw.dropna(axis=0, how="all").dropna(axis=1, how="all")
     if raw.empty:
         raise DataError(f"{path}: sheet `{chosen}` is empty; put a header row and data rows on it, "
@@ -549,17 +724,25 @@ def _read_parquet(path: Path, wanted: tuple[str, ...]) -> tuple[pd.DataFrame, li
     """The wanted columns that the file has (only those are read), and the names of all its columns."""
     import pyarrow.parquet as pq
 
+    def unreadable(exc: Exception) -> DataError:
+        return DataError(f"{path}: not a readable Parquet file ({type(exc).__name__}); export it again, or set "
+                         "data.format if it is not Parquet")
+
     try:
         schema = pq.read_schema(path)
         stored_index = (schema.pandas_metadata or {}).get("index_columns", [])
-        names = [name for name in schema.names if name not in stored_index]
-        frame = pd.read_parquet(path, columns=[name for name in wanted if name in names])
     except Exception as exc:  # pyarrow raises its own types for a broken file
-        raise DataError(f"{path}: not a readable Parquet file ({type(exc).__name__}); export it again, or set "
-                        "data.format if it is not Parquet") from None
+        raise unreadable(exc) from None
+    stored = [name for name in schema.names if name not in stored_index]
+    names = _header_names(stored, "the Parquet schema", path)  # repeated names are refused here, by name
+    keys = {_nfc(name) for name in wanted}
+    chosen = [index for index, name in enumerate(names) if _nfc(name) in keys]
+    try:
+        frame = pd.read_parquet(path, columns=[stored[index] for index in chosen])
+    except Exception as exc:
+        raise unreadable(exc) from None
     frame = frame.reset_index(drop=True)
-    _header_names(names, "the Parquet schema", path)
-    frame.columns = [str(c) for c in frame.columns]
+    frame.columns = [names[index] for index in chosen]
     frame.index = pd.RangeIndex(1, len(frame) + 1, name="row")
     return frame, names
 
@@ -586,7 +769,7 @@ def _column_list(available: list[str]) -> str:
 
 
 def _require_column(path: Path, available: list[str], column: str, where: str, restricted: bool = False) -> None:
-    if column in available:
+    if column in available or _nfc(column) in _nfc_lookup(available):
         return
     close = difflib.get_close_matches(column, available, n=3, cutoff=0.5)
     hint = f"; close matches: {', '.join(close)}" if close else ""
@@ -600,23 +783,55 @@ def _require_column(path: Path, available: list[str], column: str, where: str, r
                     f"Columns are: {_column_list(available)}")
 
 
-def load_table(spec: Spec) -> Table:
-    """Read the spec's data file as text cells; numeric parsing happens per column. A CSV file larger than
-    ``STREAM_THRESHOLD`` bytes is streamed instead, keeping only the needed columns, already as floats."""
+# What a path that is not a regular file is, by the file type bits of its status (POSIX stat.h).
+SPECIAL_FILES = ((stat.S_ISFIFO, "a named pipe (FIFO)"), (stat.S_ISCHR, "a device (like /dev/null or /dev/zero)"),
+                 (stat.S_ISBLK, "a disk device"), (stat.S_ISSOCK, "a socket"))
+
+
+def _data_file(spec: Spec) -> Path:
+    """The data file's path, after checking that it names a regular file; nothing is opened, so a named
+    pipe cannot make the reader wait."""
     source = spec.document.data
+    written = spec.base_dir / source.path
+    loop = DataError(f"{written}: is a symbolic link that leads, through links, back to itself; point "
+                     "data.path at the data file itself")
     try:
         path = spec.data_path
-        exists, is_file = path.exists(), path.is_file()
+        mode = path.stat().st_mode
+    except RuntimeError:  # Python 3.11's Path.resolve raises this for a link loop
+        raise loop from None
+    except (FileNotFoundError, NotADirectoryError):
+        raise DataError(f"{path}: data file not found (data.path = {source.path!r} in the spec, "
+                        "relative to the spec's folder); correct data.path") from None
     except (OSError, ValueError) as exc:
+        if getattr(exc, "errno", None) == errno.ELOOP:
+            raise loop from None
         shown = source.path if len(source.path) <= 60 else source.path[:57] + "..."
         reason = getattr(exc, "strerror", None) or str(exc)
         raise DataError(f"{spec.source_path}: data.path = {shown!r} cannot be used as a file path "
                         f"({reason}); correct it") from None
-    if not exists:
-        raise DataError(f"{path}: data file not found (data.path = {source.path!r} in the spec, "
-                        "relative to the spec's folder); correct data.path")
-    if not is_file:
+    if stat.S_ISDIR(mode):
         raise DataError(f"{path}: is a folder; data.path must name a CSV, Excel or Parquet file")
+    if not stat.S_ISREG(mode):
+        what = next((name for test, name in SPECIAL_FILES if test(mode)), "not a regular file")
+        raise DataError(f"{path}: is {what}, not a file that can be read as a table; data.path must name a "
+                        "CSV, Excel or Parquet file")
+    return path
+
+
+def _data_column(table: Table, column: str) -> str:
+    """The table's spelling of a column the spec names, which may be in another Unicode normal form."""
+    names = table.parsed.keys() if table.parsed is not None else table.frame.columns
+    if column in names:
+        return column
+    return _nfc_lookup(names).get(_nfc(column), column)
+
+
+def load_table(spec: Spec) -> Table:
+    """Read the spec's data file as text cells; numeric parsing happens per column. A CSV file larger than
+    ``STREAM_THRESHOLD`` bytes is streamed instead, keeping only the needed columns, already as floats."""
+    source = spec.document.data
+    path = _data_file(spec)
     kind = _detect_format(path, source.format)
     encoding = delimiter = ""
     sheet = source.sheet
@@ -644,7 +859,8 @@ def load_table(spec: Spec) -> Table:
         for column in source.columns:
             _require_column(path, available, column, "data.columns")
         kept = list(source.columns)
-    frame = frame.loc[:, [column for column in kept if column in frame.columns]]
+    lookup = _nfc_lookup(frame.columns)
+    frame = frame.loc[:, list(dict.fromkeys(lookup[_nfc(c)] for c in kept if _nfc(c) in lookup))]
     for column in wanted:
         _require_column(path, kept, column, _key_paths(spec, column), bool(source.columns))
     return Table(path=path, sha256=file_sha256(path), frame=frame, encoding=encoding, sheet=sheet,
@@ -655,39 +871,68 @@ def _cells(cells: Iterable[tuple[object, object]]) -> str:
     return ", ".join(f"row {row} ({str(cell)[:20]!r})" for row, cell in cells)
 
 
-def _parse_cells(raw: pd.Series) -> tuple[np.ndarray, np.ndarray]:
-    """Cells as floats (NaN where missing), and where a cell is not a number.
+def _parse_cells(raw: pd.Series) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Cells as floats (NaN where missing), where a cell is not a number, and where a nonzero number was
+    read as 0 because it is below the smallest subnormal double (``1e-400``).
 
     Parsed in blocks of ``CHUNK_ROWS`` rows: pandas parses integers apart from
     other numbers, so the blocks keep a streamed file's floats equal to these.
     """
-    values, bad = [np.empty(0)], [np.zeros(0, dtype=bool)]
+    values, bad, tiny = [np.empty(0)], [np.zeros(0, dtype=bool)], [np.zeros(0, dtype=bool)]
     for start in range(0, len(raw), CHUNK_ROWS):
         text = raw.iloc[start:start + CHUNK_ROWS].astype("string").str.strip()
         missing = (text.isna() | text.str.lower().isin(MISSING_TOKENS)).to_numpy(dtype=bool)
         parsed = pd.to_numeric(text.mask(missing), errors="coerce").to_numpy(dtype=float, na_value=np.nan)
         values.append(parsed)
         bad.append(~missing & np.isnan(parsed))
-    return np.concatenate(values), np.concatenate(bad)
+        zero = parsed == 0
+        underflow = np.zeros(parsed.size, dtype=bool)
+        if zero.any():  # a zero whose digits before the exponent are not all 0 was written as a nonzero number
+            mantissa = text[zero].str.replace(r"[eE].*$", "", regex=True)
+            underflow[zero] = mantissa.str.contains("[1-9]", regex=True).to_numpy(dtype=bool, na_value=False)
+        tiny.append(underflow)
+    return np.concatenate(values), np.concatenate(bad), np.concatenate(tiny)
+
+
+def _refuse_sheet_problems(table: Table, column: str, raw: pd.Series) -> None:
+    """Formula errors and formulas without a saved value, refused with their cell addresses."""
+    found = [cell for cell in raw if isinstance(cell, SheetProblem)]
+    if not found:
+        return
+    more = f" and {len(found) - 3} more" if len(found) > 3 else ""
+    fixes = []
+    if any(cell.kind == "error" for cell in found):
+        fixes.append("correct the formulas that give errors, or blank those cells")
+    if any(cell.kind == "formula" for cell in found):
+        fixes.append("open the workbook in a spreadsheet program and save it, so that the formulas' values "
+                     "are stored")
+    raise DataError(f"{table.path}: column `{column}` (sheet `{table.sheet}`) has cells without a number: "
+                    f"{', '.join(cell.describe() for cell in found[:3])}{more}; {'; '.join(fixes)}")
 
 
 def _numeric_column(table: Table, column: str) -> np.ndarray:
     """The column as floats, NaN where a cell is missing; a cell that is not a number is an error."""
+    name = _data_column(table, column)
     if table.parsed is not None:
-        parsed = table.parsed[column]
-        values, bad, n_bad, infinite = parsed.values, parsed.bad, parsed.n_bad, parsed.infinite
+        parsed = table.parsed[name]
+        values, bad, n_bad, infinite, tiny = parsed.values, parsed.bad, parsed.n_bad, parsed.infinite, parsed.tiny
     else:
-        raw = table.frame[column]
+        raw = table.frame[name]
+        tiny_mask = np.zeros(len(raw), dtype=bool)
         if pd.api.types.is_numeric_dtype(raw) and not pd.api.types.is_complex_dtype(raw):
             values = raw.to_numpy(dtype=float, na_value=np.nan).copy()
             positions = np.zeros(0, dtype=int)
         else:
-            values, bad_mask = _parse_cells(raw)
+            if table.sheet:
+                _refuse_sheet_problems(table, column, raw)
+            values, bad_mask, tiny_mask = _parse_cells(raw)
             positions = np.flatnonzero(bad_mask)
         bad = tuple((raw.index[p], raw.iloc[p]) for p in positions[:3])
         n_bad = positions.size
         first = np.flatnonzero(np.isinf(values))[:1]
         infinite = (raw.index[first[0]], raw.iloc[first[0]]) if first.size else None
+        first = np.flatnonzero(tiny_mask)[:1]
+        tiny = (raw.index[first[0]], raw.iloc[first[0]]) if first.size else None
     if n_bad:
         more = f" and {n_bad - 3} more" if n_bad > 3 else ""
         commas = all(DECIMAL_COMMA.match(str(cell).strip()) for _, cell in bad)
@@ -697,6 +942,10 @@ def _numeric_column(table: Table, column: str) -> np.ndarray:
     if infinite is not None:
         raise DataError(f"{table.path}: column `{column}` has an infinite or out-of-range value at "
                         f"{_cells([infinite])}; replace it with a finite number or leave it blank")
+    if tiny is not None:
+        raise DataError(f"{table.path}: column `{column}` has a number too close to zero to store at "
+                        f"{_cells([tiny])}: it would be read as 0; write 0 if that is meant, or rescale the "
+                        "column, e.g. to millionths")
     return values
 
 
@@ -705,6 +954,9 @@ def pair_data(table: Table, pair: PairSpec, missing_policy: str) -> PairData:
     x_all = _numeric_column(table, pair.x)
     y_all = _numeric_column(table, pair.y)
     where = f"{table.path}: pair (`{pair.x}`, `{pair.y}`)"
+    if _data_column(table, pair.x) == _data_column(table, pair.y):
+        raise DataError(f"{where} names one column of the data twice, spelled with different Unicode characters "
+                        "(an accent stored as part of its letter or as a separate mark); pair two columns")
     present = {}
     for name, values in ((pair.x, x_all), (pair.y, y_all)):
         present[name] = int((~np.isnan(values)).sum())

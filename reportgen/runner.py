@@ -13,6 +13,7 @@ import hashlib
 import io
 import json
 import logging
+import math
 import os
 import shutil
 import sys
@@ -64,29 +65,76 @@ def prepare(spec: Spec) -> Prepared:
     pairs = load_pairs(spec, table)
     report.logo_data_uri(spec)  # a bad logo is refused now, not after the fits
     if spec.document.report.templates:
-        report.template_folders(spec.resolve_input(spec.document.report.templates, "report.templates"))
+        # parsed now, so a broken or hostile template is refused before the first fit
+        report.render.check_templates(spec.resolve_input(spec.document.report.templates, "report.templates"))
     return Prepared(spec=spec, table=table, pairs=pairs)
 
 
+def _resolved(path: Path) -> Path:
+    try:
+        return path.resolve()
+    except (OSError, RuntimeError):  # a link loop: prepare() refuses those; compare the path as written
+        return Path(os.path.abspath(path))
+
+
+def input_locations(spec: Spec) -> dict[Path, str]:
+    """Every input (spec, data, logo, template folder) by spec key, both as named and as resolved: deleting
+    a link in the output folder that points elsewhere would break the next run, so the link counts too."""
+    named = {"data.path": spec.document.data.path, "report.logo": spec.document.report.logo,
+             "report.templates": spec.document.report.templates}
+    locations = {spec.source_path: "the spec file"}
+    for key, relative in named.items():
+        if relative:
+            written = Path(os.path.abspath(spec.base_dir / relative))
+            locations |= {_resolved(written.parent) / written.name: key, _resolved(written): key}
+    return locations
+
+
 def check_output_folder(out_dir: Path, prepared: Prepared) -> None:
-    protected = {prepared.table.path.resolve(), prepared.spec.source_path.resolve()}
+    """Refuse, before any fit, an output folder the run would damage (an input in it) or cannot write."""
+    inputs = input_locations(prepared.spec)
     if out_dir.exists() and not out_dir.is_dir():
         raise OutputError(f"{out_dir}: --out must be a folder, and this is a file")
+    folder = _resolved(out_dir)
     for name in OUTPUT_FILES:
-        if (out_dir / name).resolve() in protected:
-            raise OutputError(f"{out_dir}: writing {name} there would overwrite an input file; "
+        target = folder / name
+        key = inputs.get(target) or inputs.get(_resolved(target))
+        if key:
+            raise OutputError(f"{out_dir}: writing {name} there would overwrite an input file ({key}); "
                               "choose another --out folder")
-        if (out_dir / name).is_dir():
+        if target.is_dir():
             raise OutputError(f"{out_dir / name}: is a folder, so the report's {name} cannot be written there; "
                               "move it or choose another --out folder")
-    draws_path = out_dir / DRAWS_FOLDER
-    if draws_path.exists() and not draws_path.is_dir():
-        raise OutputError(f"{draws_path}: is a file, but reportgen writes a {DRAWS_FOLDER}/ folder there; "
-                          "move it or choose another --out folder")
-    draws = (out_dir / DRAWS_FOLDER).resolve()
-    if any(draws in path.parents for path in protected):
-        raise OutputError(f"{out_dir}: the {DRAWS_FOLDER}/ folder it replaces holds an input file; "
-                          "choose another --out folder")
+    draws = folder / DRAWS_FOLDER
+    if draws.exists() and not draws.is_dir():
+        raise OutputError(f"{out_dir / DRAWS_FOLDER}: is a file, but reportgen writes a {DRAWS_FOLDER}/ folder "
+                          "there; move it or choose another --out folder")
+    for path, key in inputs.items():
+        if path == draws or draws in path.parents:  # the run deletes the previous draws/ folder whole
+            raise OutputError(f"{out_dir}: the {DRAWS_FOLDER}/ folder that the run replaces holds an input "
+                              f"({key}: {path}); move that input out of it or choose another --out folder")
+    check_writable(out_dir)
+
+
+def check_writable(out_dir: Path) -> None:
+    """Create and remove a probe file wherever the run will write, so a read-only place is refused now:
+    beside ``out_dir`` (staging; the nearest existing folder up), in it, and in a real draws/ (renamed)."""
+    folder = _resolved(out_dir)
+    places = [next((p for p in folder.parents if p.is_dir()), Path(folder.anchor))]
+    if folder.is_dir():
+        places.append(folder)
+        draws = folder / DRAWS_FOLDER
+        if draws.is_dir() and not draws.is_symlink():
+            places.append(draws)
+    for place in places:
+        try:
+            handle, probe = tempfile.mkstemp(prefix=".reportgen-probe-", dir=place)
+            os.close(handle)
+            os.unlink(probe)
+        except OSError as exc:
+            raise OutputError(f"{place}: cannot write there ({exc.strerror or type(exc).__name__}), so the "
+                              f"outputs of --out {out_dir} could not be saved; choose another --out folder or "
+                              "fix its permissions") from None
 
 
 def safe_file_stem(key: str) -> str:
@@ -132,12 +180,42 @@ def _one_line(exc: BaseException) -> str:
     return f"{type(exc).__name__}: {text}"[:200]
 
 
+# A cell starting with one of these is read by spreadsheet programs as a formula (tab and carriage
+# return can hide one); the usual remedy (common practice, OWASP "CSV Injection") is a leading apostrophe.
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+# Columns of results.csv that hold text; every other column holds numbers that reportgen formatted.
+TEXT_COLUMNS = frozenset({"pair", "x", "y", "status", "rope_decision", "interval", "status_reasons", "engine",
+                          "model", "influential_rows", "prior_sensitive", "model_warnings"})
+
+
+def neutralised(text: str) -> str:
+    """``text`` safe to open in a spreadsheet: a leading apostrophe if it could start a formula."""
+    return "'" + text if text.startswith(FORMULA_STARTS) else text
+
+
+def _is_our_number(text: str) -> bool:
+    try:
+        return math.isfinite(float(text)) and text == text.strip()
+    except ValueError:
+        return False
+
+
+def spreadsheet_cell(column: str, value: object) -> object:
+    """One results.csv cell: text neutralised, our numbers left as numbers (``-0.5`` stays ``-0.5``).
+    A text column is text whatever it looks like (a column named ``-2``); a numeric column's cell that is
+    not a finite number is neutralised too, so a text column added later cannot slip through."""
+    if not isinstance(value, str) or (column not in TEXT_COLUMNS and _is_our_number(value)):
+        return value
+    return neutralised(value)
+
+
 def results_csv(results: RunResults) -> str:
     header, rows = results_rows(results)
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(header)
-    writer.writerows(rows)
+    writer.writerow([neutralised(name) for name in header])
+    writer.writerows([spreadsheet_cell(column, cell) for column, cell in zip(header, row, strict=True)]
+                     for row in rows)
     return buffer.getvalue()
 
 
@@ -166,13 +244,15 @@ def publish(staging: Path, out_dir: Path) -> None:
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
         draws_target = out_dir / DRAWS_FOLDER
-        old = out_dir / f".{DRAWS_FOLDER}.old"
-        if draws_target.exists():
-            shutil.rmtree(old, ignore_errors=True)
-            os.replace(draws_target, old)
+        retired = None
+        if draws_target.exists() or draws_target.is_symlink():
+            # a fresh name: a fixed one (".draws.old") would delete whatever the user keeps under it
+            retired = Path(tempfile.mkdtemp(prefix=f".{DRAWS_FOLDER}.old-", dir=out_dir))
+            os.replace(draws_target, retired / DRAWS_FOLDER)
         if (staging / DRAWS_FOLDER).exists():
             os.replace(staging / DRAWS_FOLDER, draws_target)
-        shutil.rmtree(old, ignore_errors=True)
+        if retired is not None:
+            shutil.rmtree(retired, ignore_errors=True)
         for name in OUTPUT_FILES:
             os.replace(staging / name, out_dir / name)
     except OSError as exc:

@@ -9,9 +9,12 @@ from __future__ import annotations
 
 import datetime as dt
 import difflib
+import errno
 import hashlib
 import itertools
+import os
 import re
+import stat
 import tomllib
 import typing
 from pathlib import Path
@@ -24,6 +27,43 @@ from reportgen.errors import SpecError
 RULE_NAME_PATTERN = r"^[a-z][a-z0-9_]{0,39}$"
 MAX_DRAWS = 200_000
 MAX_CHAINS = 64
+
+# The fewest settings with which the convergence checks (reportgen.diagnostics) run and mean something.
+# Measured on 12- and 30-row pairs (normal, Student-t and auto models, several seeds): 1 kept draw makes
+# E-BFMI divide by zero; ArviZ's split R-hat and ESS need 2 chains of 4 draws (nan below that); R-hat of
+# one chain is unknown, and one untuned chain often never moves, which broke the density estimate. Of 48
+# chains of 20 draws, 46 never moved at tune = 1, 15 to 19 at tune = 2 and 5, none at tune = 10; 20 keeps a margin.
+MIN_DRAWS = 20
+MIN_TUNE = 20
+MIN_CHAINS = 2
+SAMPLER_MINIMUM_REASONS = {
+    "draws": "the convergence checks (R-hat, ESS, Monte Carlo error) are estimated from each chain's kept draws "
+             "and fail or mean nothing with fewer",
+    "tune": "with fewer tuning draws the sampler's step size is not adapted and chains often never move",
+    "chains": "R-hat compares chains, so one chain cannot show that the sampler converged",
+}
+
+# Longest text each kind of field takes. Long unbroken words wrap in the report (templates/report.css),
+# but the layout time grows faster than the text (measured: a 20,000-character subtitle took 9 s).
+MAX_LINE_TEXT = 200  # a title, label, name or sheet: one line of a heading or a table cell
+MAX_SUBTITLE_TEXT = 300
+MAX_UNIT_TEXT = 50
+MAX_PARAGRAPH_TEXT = 1000  # a rule's description, the confidentiality note
+MAX_COLUMN_NAME = 1000  # names from the data's header, which can be a whole survey question
+MAX_PATH_TEXT = 4096  # PATH_MAX on Linux
+LineText = Annotated[str, Field(max_length=MAX_LINE_TEXT)]
+ColumnName = Annotated[str, Field(min_length=1, max_length=MAX_COLUMN_NAME)]
+PathText = Annotated[str, Field(max_length=MAX_PATH_TEXT)]
+
+# The fixed columns of results.csv that start with "p_" (reportgen.results.table.results_rows). Rule
+# columns are p_<rule> (and p_<rule>_mcse), so these rule names would repeat a header. The list is kept
+# here because spec is upstream of results; tests/test_spec_limits.py checks it against the real header.
+FIXED_P_COLUMNS = ("p_positive", "p_rope", "p_value")
+MCSE_SUFFIX = "_mcse"
+RESERVED_RULE_NAMES = frozenset(
+    {column.removeprefix("p_") for column in FIXED_P_COLUMNS}
+    | {column.removeprefix("p_").removesuffix(MCSE_SUFFIX) for column in FIXED_P_COLUMNS
+       if column.endswith(MCSE_SUFFIX)})
 
 
 CONTROL_CHARACTERS = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
@@ -61,21 +101,22 @@ class _Strict(_Frozen):
 
 
 class ReportMeta(_Strict):
-    title: Annotated[str, Field(min_length=1, max_length=200)]
-    subtitle: str = ""
-    client: str = ""
-    author: str = ""
+    title: Annotated[str, Field(min_length=1, max_length=MAX_LINE_TEXT)]
+    subtitle: Annotated[str, Field(max_length=MAX_SUBTITLE_TEXT)] = ""
+    client: LineText = ""
+    author: LineText = ""
     date: dt.date | None = None
-    confidentiality: str = "Confidential: prepared for the named client only."
-    logo: str = ""
-    templates: str = ""
+    confidentiality: Annotated[str, Field(max_length=MAX_PARAGRAPH_TEXT)] = (
+        "Confidential: prepared for the named client only.")
+    logo: PathText = ""
+    templates: PathText = ""
 
 
 class DataSource(_Strict):
-    path: Annotated[str, Field(min_length=1)]
+    path: Annotated[str, Field(min_length=1, max_length=MAX_PATH_TEXT)]
     format: Literal["auto", "csv", "excel", "parquet"] = "auto"
-    sheet: str = ""
-    columns: tuple[str, ...] = ()
+    sheet: LineText = ""
+    columns: tuple[ColumnName, ...] = ()
     missing: Literal["listwise", "fail"] = "listwise"
     # When true, data.path, report.logo and report.templates must lie inside the spec's folder:
     # for specs that arrive from elsewhere and must not read files beside or above it.
@@ -91,8 +132,8 @@ class DataSource(_Strict):
 
 
 class Variable(_Strict):
-    label: str = ""
-    unit: str = ""
+    label: LineText = ""
+    unit: Annotated[str, Field(max_length=MAX_UNIT_TEXT)] = ""
 
 
 class RhoPrior(_Strict):
@@ -155,16 +196,16 @@ ModelName = Literal["normal", "student_t", "rank", "auto"]
 
 
 class PairEntry(_Strict):
-    x: Annotated[str, Field(min_length=1)]
-    y: Annotated[str, Field(min_length=1)]
-    label: str = ""
+    x: ColumnName
+    y: ColumnName
+    label: LineText = ""
     model: ModelName | None = None  # None: the spec-wide `model`
     priors: PriorOverrides = PriorOverrides()
 
 
 class PairSet(_Strict):
-    name: Annotated[str, Field(min_length=1)]
-    columns: Annotated[tuple[str, ...], Field(min_length=2, max_length=40)]
+    name: Annotated[str, Field(min_length=1, max_length=MAX_LINE_TEXT)]
+    columns: Annotated[tuple[ColumnName, ...], Field(min_length=2, max_length=40)]
     model: ModelName | None = None
     priors: PriorOverrides = PriorOverrides()
 
@@ -202,7 +243,7 @@ class Rule(_Strict):
     lower: Annotated[float, Field(ge=-1, le=1)] | None = None
     upper: Annotated[float, Field(ge=-1, le=1)] | None = None
     required_probability: Annotated[float, Field(gt=0, lt=1)] = 0.95
-    description: str = ""
+    description: Annotated[str, Field(max_length=MAX_PARAGRAPH_TEXT)] = ""
 
     @model_validator(mode="after")
     def _bounds_match_statement(self) -> Rule:
@@ -245,9 +286,9 @@ class Summary(_Strict):
 
 
 class Sampler(_Strict):
-    draws: Annotated[int, Field(ge=1, le=MAX_DRAWS)] = 1000
-    tune: Annotated[int, Field(ge=1, le=MAX_DRAWS)] = 1000
-    chains: Annotated[int, Field(ge=1, le=MAX_CHAINS)] = 4
+    draws: Annotated[int, Field(ge=MIN_DRAWS, le=MAX_DRAWS)] = 1000
+    tune: Annotated[int, Field(ge=MIN_TUNE, le=MAX_DRAWS)] = 1000
+    chains: Annotated[int, Field(ge=MIN_CHAINS, le=MAX_CHAINS)] = 4
     target_accept: Annotated[float, Field(ge=0.5, lt=1)] = 0.8
     seed: Annotated[int, Field(ge=0, lt=2**63)] = 20261201
 
@@ -266,7 +307,7 @@ class SpecDocument(_Strict):
     model: ModelName = "normal"
     report: ReportMeta
     data: DataSource
-    variables: dict[str, Variable] = {}
+    variables: dict[ColumnName, Variable] = {}
     pairs: tuple[PairEntry, ...] = ()
     pair_sets: tuple[PairSet, ...] = ()
     priors: Priors = Priors()
@@ -287,7 +328,24 @@ class SpecDocument(_Strict):
         duplicated = sorted({n for n in names if names.count(n) > 1})
         if duplicated:
             raise ValueError(f"rule names must be unique; repeated: {', '.join(duplicated)}")
+        for index, name in enumerate(names):
+            _check_rule_column(index, name)
         return self
+
+
+def _check_rule_column(index: int, name: str) -> None:
+    """A rule's results.csv columns (p_<rule>, p_<rule>_mcse) must not repeat a fixed or another rule's column.
+
+    Checked on the document, not on ``Rule``, so that code building rules for its own use is not limited.
+    """
+    where = f"`rules[{index}].name` = \"{name}\""
+    if name in RESERVED_RULE_NAMES:
+        raise ValueError(f"{where} is reserved: results.csv already has a fixed column p_{name}, and the rule's "
+                         f"column would repeat it; rename the rule, for example to \"{name}_rule\"")
+    if name.endswith(MCSE_SUFFIX):
+        raise ValueError(f"{where} ends in {MCSE_SUFFIX}, which is kept for the Monte Carlo error columns "
+                         f"(p_<rule>{MCSE_SUFFIX}) of results.csv; rename the rule, for example to "
+                         f"\"{name.removesuffix(MCSE_SUFFIX)}_check\"")
 
 
 class PairSpec(_Frozen):
@@ -330,7 +388,13 @@ class Spec(_Frozen):
         Raises SpecError when ``data.confine_to_spec_folder`` is set and the path
         (after following ``..`` and links) leaves that folder.
         """
-        path = (self.base_dir / relative).resolve()
+        written = self.base_dir / relative
+        try:
+            path = written.resolve()
+        except RuntimeError:  # Python 3.11's Path.resolve raises this for a link loop
+            target = "the data file" if key == "data.path" else "the file or folder"
+            raise SpecError(f"{written}: is a symbolic link that leads, through links, back to itself; "
+                            f"point {key} at {target} itself") from None
         if self.document.data.confine_to_spec_folder:
             folder = self.base_dir.resolve()
             if path != folder and folder not in path.parents:
@@ -366,6 +430,8 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
     """Explicit pairs first, then every pair among each pair set's columns."""
     pairs: list[PairSpec] = []
     seen: dict[frozenset[str], str] = {}
+    # the key names the pair's results row, draws file, report section and seed record: it must be unique
+    keys: dict[str, tuple[str, str, str]] = {}
     prefix = f"{source}: " if source is not None else ""
 
     def add(x: str, y: str, label: str, overrides: PriorOverrides, where: str, pair_set: str,
@@ -379,8 +445,15 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
                             "remove one of them")
         seen[identity] = where
         merged = _merge_priors(document.priors, overrides)
-        pairs.append(PairSpec(x=x, y=y, label=label, priors=merged, pair_set=pair_set,
-                              model=model or document.model))
+        pair = PairSpec(x=x, y=y, label=label, priors=merged, pair_set=pair_set, model=model or document.model)
+        if pair.key in keys:
+            other_x, other_y, other_where = keys[pair.key]
+            raise SpecError(f"{prefix}`{where}`: the pair ({x}, {y}) would be named \"{pair.key}\", like the pair "
+                            f"({other_x}, {other_y}) at `{other_where}`, and each pair needs its own name for its "
+                            "results row and draws file; rename a column whose name contains \" vs \" in the "
+                            "data, or remove one of the two pairs")
+        keys[pair.key] = (x, y, where)
+        pairs.append(pair)
 
     for index, entry in enumerate(document.pairs):
         add(entry.x, entry.y, entry.label, entry.priors, f"pairs[{index}]", "", entry.model)
@@ -495,9 +568,13 @@ def describe_problem(problem: Any, location: tuple[Any, ...]) -> str:
     ctx = problem.get("ctx") or {}
     got = problem.get("input")
     got_text = "" if isinstance(got, dict | list | tuple) else f", got {_short_repr(got)}"
+    reason = ""
     if kind in RANGE_ERRORS:
         bounds = _bounds(_field_at(location))
         detail = f"should be {bounds}" if bounds else str(problem["msg"]).replace("Input should", "should")
+        if kind == "greater_than_equal" and len(location) == 2 and location[0] == "sampler":
+            why = SAMPLER_MINIMUM_REASONS.get(str(location[1]), "")  # a minimum set by the diagnostics: say why
+            reason = f": {why}" if why else ""
     elif kind in ("model_type", "model_attributes_type", "dict_type"):
         detail = "should be a table of keys (a [section] or {key = value})"
     elif kind in ("tuple_type", "list_type"):
@@ -537,7 +614,7 @@ def describe_problem(problem: Any, location: tuple[Any, ...]) -> str:
         detail = str(problem["msg"]).removeprefix("Value error, ").replace("Input should", "should")
         if kind == "value_error":  # our own validators' messages already say what was wrong
             got_text = ""
-    return f"{detail}{got_text}"
+    return f"{detail}{got_text}{reason}"
 
 
 def describe_validation_error(error: ValidationError, source: Path) -> str:
@@ -566,11 +643,32 @@ def describe_validation_error(error: ValidationError, source: Path) -> str:
                    else f"`{path}` is required but missing; add it")
     elif not location:
         message = describe_problem(first, location)
+    elif location[-1] == "[key]":  # a [variables] key (a column name): quoting it whole could fill the screen
+        message = f"`{format_location(location[:-2])}`: a column name {describe_problem(first, location)}"
     else:
         message = f"`{path}`: {describe_problem(first, location)}"
     more = len(problems) - 1
     suffix = f" (and {more} more problem{'s' if more > 1 else ''})" if more else ""
     return f"{source}: {message}{suffix}"
+
+
+MAX_NESTING = 32  # a spec needs about 5 levels ([[pairs]] -> priors -> rho -> value)
+
+
+def _nesting_depth(value: Any) -> int:
+    """How deeply lists and tables nest inside ``value``, counted without recursion."""
+    deepest = 0
+    stack: list[tuple[Any, int]] = [(value, 0)]
+    while stack:
+        item, depth = stack.pop()
+        deepest = max(deepest, depth)
+        if deepest > MAX_NESTING:
+            break
+        if isinstance(item, dict):
+            stack.extend((child, depth + 1) for child in item.values())
+        elif isinstance(item, list):
+            stack.extend((child, depth + 1) for child in item)
+    return deepest
 
 
 def parse_spec_text(text: str, source: Path) -> SpecDocument:
@@ -581,6 +679,11 @@ def parse_spec_text(text: str, source: Path) -> SpecDocument:
     except RecursionError:
         raise SpecError(f"{source}: not valid TOML for a spec (arrays or tables nested too deeply); "
                         "check the brackets") from None
+    if _nesting_depth(raw) > MAX_NESTING:
+        # Whether the TOML reader itself runs out of stack depends on the process's recursion limit
+        # (importing PyMC raises it), so deep nesting is refused here by measure, the same way every time.
+        raise SpecError(f"{source}: not valid TOML for a spec (arrays or tables nested too deeply); "
+                        "check the brackets")
     try:
         return SpecDocument.model_validate(raw)
     except ValidationError as exc:
@@ -599,6 +702,47 @@ def _decode_spec(raw_bytes: bytes, source: Path) -> str:
                         "which is not UTF-8; re-save the file as UTF-8") from None
 
 
+def _not_a_file(source: Path, mode: int) -> SpecError:
+    """The error for a spec path that exists but is not a regular file, saying what it is instead."""
+    if stat.S_ISDIR(mode):
+        what = "is a folder, not a spec file"
+    elif stat.S_ISFIFO(mode):
+        what = "is a named pipe (FIFO), not a file"
+    elif stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        what = "is a device, not a file"
+    elif stat.S_ISSOCK(mode):
+        what = "is a socket, not a file"
+    else:
+        what = "is not a regular file"
+    return SpecError(f"{source}: {what}; give the path of the .toml file")
+
+
+def _read_spec_bytes(source: Path) -> bytes:
+    """The spec file's bytes; a folder, pipe, device or link loop is named as such, and a pipe never blocks."""
+    try:
+        mode = os.stat(source).st_mode
+        if not stat.S_ISREG(mode):
+            raise _not_a_file(source, mode)
+        # Opened without blocking and checked again through the open file: a path swapped for a pipe
+        # after the first check must not hang the run.
+        descriptor = os.open(source, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0))
+        with os.fdopen(descriptor, "rb") as handle:
+            mode = os.fstat(handle.fileno()).st_mode
+            if not stat.S_ISREG(mode):
+                raise _not_a_file(source, mode)
+            return handle.read()
+    except FileNotFoundError:
+        dangling = os.path.islink(source)
+        raise SpecError(f"{source}: {'is a symbolic link to a missing file' if dangling else 'spec file not found'}"
+                        "; check the path") from None
+    except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            raise SpecError(f"{source}: is a symbolic link loop (its links lead back to themselves); "
+                            "point the link at the spec file or give the file's own path") from None
+        raise SpecError(f"{source}: the spec file cannot be read ({exc.strerror or type(exc).__name__}); "
+                        "check the path and its permissions") from None
+
+
 def load_spec(path: str | Path) -> Spec:
     """Read, validate and resolve a spec file.
 
@@ -608,15 +752,7 @@ def load_spec(path: str | Path) -> Spec:
         For a missing or unreadable file, invalid TOML, or any rule broken.
     """
     source = Path(path)
-    try:
-        if not source.exists():
-            raise SpecError(f"{source}: spec file not found; check the path")
-        if not source.is_file():
-            raise SpecError(f"{source}: is a folder, not a spec file; give the path of the .toml file")
-        raw_bytes = source.read_bytes()
-    except OSError as exc:
-        raise SpecError(f"{source}: the spec file cannot be read ({exc.strerror or type(exc).__name__}); "
-                        "check the path and its permissions") from None
+    raw_bytes = _read_spec_bytes(source)
     text = _decode_spec(raw_bytes, source)
     document = parse_spec_text(text, source)
     pairs = expand_pairs(document, source)

@@ -2,10 +2,31 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
+import re
+import shlex
+from collections.abc import Sequence
 from pathlib import Path
 
-from reportgen.spec import Checks, Diagnostics, MeanPrior, RhoPrior, Rope, Sampler, SdPrior, Summary
+from pydantic import ValidationError
+
+from reportgen.errors import SpecError
+from reportgen.spec import (
+    Checks,
+    Diagnostics,
+    MeanPrior,
+    ReportMeta,
+    RhoPrior,
+    Rope,
+    Sampler,
+    SdPrior,
+    Spec,
+    Summary,
+    describe_problem,
+    expand_pairs,
+    parse_spec_text,
+)
 
 
 def _toml_string(value: str) -> str:
@@ -128,3 +149,39 @@ def relative_data_path(data: Path, spec_path: Path) -> str:
     import os
 
     return os.path.relpath(data.resolve(), spec_path.resolve().parent)
+
+
+def check_title(title: str) -> None:
+    """Refuse a ``--title`` the spec would refuse, naming the option rather than the spec's key."""
+    try:
+        ReportMeta.model_validate({"title": title})
+    except ValidationError as exc:
+        problem = exc.errors(include_url=False)[0]
+        raise SpecError(f"--title: {describe_problem(problem, ('report', 'title'))}") from None
+
+
+def starter_as_spec(text: str, output: Path) -> Spec:
+    """The starter spec as if already saved at ``output``: checking it writes no file (not even a temporary)."""
+    document = parse_spec_text(text, output)
+    return Spec(document=document, source_path=output.resolve(),
+                source_sha256=hashlib.sha256(text.encode("utf-8")).hexdigest(), source_text=text,
+                pairs=expand_pairs(document, output))
+
+
+def name_the_options(message: str, pairs: Sequence[tuple[str, str]], output: Path) -> str:
+    """A message about the starter spec, reworded for the ``init`` command line that made it.
+
+    The spec's ``pairs[i]`` came from the i-th ``--pair``, and its ``variables.<column>`` tables from the
+    ``--pair`` options naming that column, so the message names the option the user typed.
+    """
+    options = [f"--pair {shlex.quote(x)} {shlex.quote(y)}" for x, y in pairs]
+    message = message.replace(str(output.resolve()), str(output))
+    for column in sorted({c for pair in pairs for c in pair}, key=len, reverse=True):
+        named = next(option for option, pair in zip(options, pairs, strict=True) if column in pair)
+        message = message.replace(f"(named in variables.{column})", f"(named in {named})")
+
+    def option(match: re.Match[str]) -> str:
+        index = int(match.group(1))
+        return options[index] if index < len(options) else match.group(0)
+
+    return re.sub(r"pairs\[(\d+)\](?:\.[xy])?", option, message)

@@ -237,7 +237,8 @@ def test_spec_credible_mass_outside_zero_one(tmp_path: Path, value: str) -> None
 ])
 def test_spec_sampler_settings_below_one_or_absurdly_large(tmp_path: Path, key: str, value: str, limit: str) -> None:
     spec = project(tmp_path, PAIR_ALPHA_B + f"[sampler]\n{key} = {value}\n", quick=False)
-    check_refuses(spec, f"`sampler.{key}`", f"should be at least 1 and {limit}", f"got {value}")
+    minimum = 2 if key == "chains" else 20  # what R-hat, ESS and E-BFMI need (spec.SAMPLER_MINIMUM_REASONS)
+    check_refuses(spec, f"`sampler.{key}`", f"should be at least {minimum} and {limit}", f"got {value}")
 
 
 @pytest.mark.parametrize(("option", "value"), [("--draws", "0"), ("--chains", "65"), ("--tune", "-1")])
@@ -245,7 +246,8 @@ def test_command_line_sampler_overrides_out_of_range(tmp_path: Path, option: str
     spec = project(tmp_path)
     out = tmp_path / "out"
     message = refused("run", spec, "--out", out, option, value)
-    assert message.startswith(f"{option}: should be at least 1") and f"got {value}" in message
+    minimum = 2 if option == "--chains" else 20
+    assert message.startswith(f"{option}: should be at least {minimum}") and f"got {value}" in message
     assert not out.exists()
 
 

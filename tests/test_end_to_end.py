@@ -38,7 +38,7 @@ name = "Trio"
 columns = ["b", "c", "d"]
 
 [[rules]]
-name = "positive"
+name = "above_zero"
 statement = "above"
 threshold = 0.0
 required_probability = 0.9

@@ -226,7 +226,7 @@ b = 2.0
 name = "s"
 columns = ["b", "c"]
 [[rules]]
-name = "positive"
+name = "above_zero"
 statement = "above"
 threshold = 0.0
 required_probability = 0.9

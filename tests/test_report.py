@@ -51,8 +51,13 @@ def test_logo_must_be_a_real_image(tmp_path: Path) -> None:
 
 
 def test_a_valid_logo_is_inlined(tmp_path: Path) -> None:
-    png = bytes.fromhex("89504e470d0a1a0a") + b"\x00" * 32
-    (tmp_path / "logo.png").write_bytes(png)
+    import io
+
+    from PIL import Image
+
+    buffer = io.BytesIO()
+    Image.new("RGB", (48, 24), (40, 110, 120)).save(buffer, "PNG")  # a real PNG: the logo is decoded now
+    (tmp_path / "logo.png").write_bytes(buffer.getvalue())
     assert logo_data_uri(_spec_with_logo(tmp_path, "logo.png")).startswith("data:image/png;base64,")
 
 
