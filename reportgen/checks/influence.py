@@ -33,6 +33,7 @@ from scipy.interpolate import PchipInterpolator
 from scipy.special import ndtr, ndtri
 
 from reportgen import exact
+from reportgen.checks import pair_rows
 from reportgen.crosscheck import exact_rule_probability
 from reportgen.spec import Rule
 
@@ -163,12 +164,7 @@ def leave_one_out(x: np.ndarray, y: np.ndarray, row_numbers: np.ndarray, prior_a
     is met when its probability is at least ``rule.required_probability``), or when without it one
     column is constant (the correlation then exists only through that row; its shift is nan).
     """
-    x = np.asarray(x, dtype=float).ravel()
-    y = np.asarray(y, dtype=float).ravel()
-    row_numbers = np.asarray(row_numbers).ravel()
-    if x.size != y.size or x.size != row_numbers.size:
-        raise ValueError(f"x, y and row_numbers must have the same length, got {x.size}, {y.size}, "
-                         f"{row_numbers.size}")
+    x, y, row_numbers = pair_rows(x, y, row_numbers)
     if not (np.isfinite(threshold) and threshold > 0.0):
         raise ValueError(f"threshold must be a positive number, got {threshold!r}")
     n = x.size

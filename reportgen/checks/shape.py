@@ -26,6 +26,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from reportgen.checks import pair_rows
+
 MIN_ROWS = 4  # the Beta law of the distances needs n > 3
 DEGENERATE_ONE_MINUS_R2 = 1e-12  # below this 1 - r^2 the covariance is treated as singular
 
@@ -107,12 +109,7 @@ def mardia_statistics(z1: np.ndarray, z2: np.ndarray) -> tuple[float, float]:
 
 def shape_checks(x: np.ndarray, y: np.ndarray, row_numbers: np.ndarray, level: float = 0.05) -> Shape:
     """Mahalanobis distances with a Bonferroni cut-off, and Mardia's tests of bivariate normality."""
-    x = np.asarray(x, dtype=float).ravel()
-    y = np.asarray(y, dtype=float).ravel()
-    row_numbers = np.asarray(row_numbers).ravel()
-    if x.size != y.size or x.size != row_numbers.size:
-        raise ValueError(f"x, y and row_numbers must have the same length, got {x.size}, {y.size}, "
-                         f"{row_numbers.size}")
+    x, y, row_numbers = pair_rows(x, y, row_numbers)
     if not (0.0 < level < 1.0):
         raise ValueError(f"level must lie strictly between 0 and 1, got {level!r}")
     n = x.size

@@ -34,6 +34,7 @@ from reportgen.figures.style import (
     _text_width_pt,
     _to_svg,
     _vector,
+    row_positions,
 )
 
 __all__ = ["mahalanobis_qq"]
@@ -128,17 +129,6 @@ class _QQLayers:
     y_max: float
 
 
-def _flag_positions(flagged: np.ndarray, n: int) -> np.ndarray:
-    raw = np.asarray(flagged)
-    if raw.size == 0:
-        return np.empty(0, dtype=np.intp)
-    if raw.ndim != 1 or not np.issubdtype(raw.dtype, np.integer):
-        raise ValueError("flagged must be a one-dimensional array of integer positions")
-    if raw.min() < 0 or raw.max() >= n:
-        raise ValueError(f"flagged positions must lie in [0, {n - 1}]")
-    return raw.astype(np.intp)
-
-
 def _qq_layers(distances_sq: np.ndarray, expected_sq: np.ndarray, cutoff: float, flagged: np.ndarray) -> _QQLayers:
     """Sort, place the flagged rows on the curve and thin the bulk of a large sample.
 
@@ -211,7 +201,7 @@ def mahalanobis_qq(distances_sq: np.ndarray, expected_sq: np.ndarray, cutoff: fl
     if not degenerate and not (np.all(np.isfinite(distances)) and np.all(distances >= 0.0)):
         raise ValueError("distances_sq must be finite and non-negative (or all NaN for a degenerate pair)")
     limit = float(cutoff)
-    positions = _flag_positions(flagged, n)
+    positions = row_positions(flagged, n, "flagged")
     texts = [str(t) for t in labels]
     if len(texts) != positions.size:
         raise ValueError(f"labels has {len(texts)} values for {positions.size} flagged rows")

@@ -41,6 +41,7 @@ from reportgen.figures.style import (
     _styled,
     _to_svg,
     _vector,
+    row_positions,
 )
 
 __all__ = [
@@ -139,20 +140,6 @@ def _subsample(n: int, max_points: int, seed: int) -> np.ndarray:
 _SCATTER_AXES_PT = (HALF_WIDTH * 72.0 - 50.0, 3.0 * 72.0 - 75.0)  # rough axes size, for label placement
 
 
-def _highlight_positions(highlight: ArrayLike | None, n: int) -> np.ndarray:
-    """Validated integer positions of the rows to mark (indices into x and y)."""
-    if highlight is None:
-        return np.empty(0, dtype=np.intp)
-    raw = np.asarray(highlight)
-    if raw.size == 0:
-        return np.empty(0, dtype=np.intp)
-    if raw.ndim != 1 or not np.issubdtype(raw.dtype, np.integer):
-        raise ValueError("highlight must be a one-dimensional array of integer positions")
-    if raw.min() < 0 or raw.max() >= n:
-        raise ValueError(f"highlight positions must lie in [0, {n - 1}]")
-    return raw.astype(np.intp)
-
-
 def _first_occurrences(positions: np.ndarray, labels: list[str]) -> tuple[np.ndarray, list[str]]:
     """Drop repeated positions (a row marked twice keeps its first label)."""
     _, first = np.unique(positions, return_index=True)
@@ -239,7 +226,7 @@ def scatter_with_ellipses(
     ya = _vector("y", y, xa.size)
     if max_points < 1:
         raise ValueError("max_points must be at least 1")
-    marked = _highlight_positions(highlight, xa.size)
+    marked = row_positions(highlight, xa.size, "highlight")
     labels = [str(t) for t in highlight_labels]
     if len(labels) > marked.size:
         raise ValueError(f"highlight_labels has {len(labels)} labels for {marked.size} highlighted rows")

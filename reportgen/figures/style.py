@@ -378,3 +378,17 @@ def _check_grid(grid: ArrayLike) -> np.ndarray:
     if g.size < 2 or not np.all(np.isfinite(g)) or np.any(np.diff(g) <= 0):
         raise ValueError("grid must hold at least two finite, strictly increasing values")
     return g
+
+
+def row_positions(values: ArrayLike | None, n: int, name: str) -> np.ndarray:
+    """Validated integer positions of rows to mark (indices into arrays of length ``n``)."""
+    if values is None:
+        return np.empty(0, dtype=np.intp)
+    raw = np.asarray(values)
+    if raw.size == 0:
+        return np.empty(0, dtype=np.intp)
+    if raw.ndim != 1 or not np.issubdtype(raw.dtype, np.integer):
+        raise ValueError(f"{name} must be a one-dimensional array of integer positions")
+    if raw.min() < 0 or raw.max() >= n:
+        raise ValueError(f"{name} positions must lie in [0, {n - 1}]")
+    return raw.astype(np.intp)
