@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import time
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -18,6 +18,9 @@ from reportgen.diagnostics import NOT_SAMPLED, STATUS_ORDER, Diagnosis, diagnose
 from reportgen.fit import PairFit, derive_seed
 from reportgen.models.rank import rank_posterior
 from reportgen.spec import Spec
+
+if TYPE_CHECKING:  # choice.py builds on this module, so its type is named for the checker only
+    from reportgen.results.choice import ModelChoice
 
 R_LIMIT = 1.0 - 1e-9  # the exact engine's domain; the data stage refuses |r| this close to 1
 PARAMETER_BOUNDS = {"rho": (-1.0, 1.0), "tau": (-1.0, 1.0), "sigma_x": (0.0, None), "sigma_y": (0.0, None),
@@ -88,7 +91,7 @@ class PairResult:
     # verdicts move under other priors, and which model leads and why.
     checks: ModelChecks | None = None
     sensitivity: Sensitivity | None = None
-    choice: Any = None  # results.choice.ModelChoice
+    choice: ModelChoice | None = None
 
     @property
     def rho(self) -> ParameterSummary:
