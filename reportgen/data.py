@@ -19,7 +19,7 @@ refused with the cell's address, as text is. A nonzero number written so
 small that it would be stored as 0 (``1e-400``) is refused like ``1e400``;
 subnormal numbers (down to about 5e-324) are kept, because they are nonzero.
 
-A CSV file larger than ``STREAM_THRESHOLD`` is not held: it is read row by
+A CSV file larger than ``io.csv.STREAM_THRESHOLD`` is not held: it is read row by
 row and only the columns the pairs need are kept, parsed to floats as they are
 read (``Table.parsed``), with the same rules, results and messages. A Parquet
 file is read for the needed columns only.
@@ -27,46 +27,34 @@ file is read for the needed columns only.
 
 from __future__ import annotations
 
-import codecs
-import csv
 import difflib
 import errno
 import hashlib
-import io
-import operator
 import re
 import stat
-import unicodedata
-import warnings
-import zipfile
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, BinaryIO
 
 import numpy as np
 import pandas as pd
 
 from reportgen.errors import DataError
+from reportgen.io.common import nfc, nfc_lookup, no_rows
+from reportgen.io.csv import ParsedColumn, parse_cells, read_csv_table
+from reportgen.io.excel import SheetProblem, read_excel
+from reportgen.io.parquet import read_parquet
 from reportgen.spec import PairSpec, Spec
 
+__all__ = ["MIN_COMPLETE_ROWS", "PERFECT_CORRELATION", "PairData", "ParsedColumn", "SheetProblem", "SufficientStats",
+           "Table", "file_sha256", "load_pairs", "load_table", "pair_data", "sufficient_stats"]
+
 MIN_COMPLETE_ROWS = 4
-CSV_ENCODINGS = ("utf-8", "cp1252", "latin-1")
-CSV_DELIMITERS = (",", ";", "\t", "|")
-DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "bar"}
 EXCEL_SUFFIXES = {".xlsx", ".xlsm", ".xls"}
 PARQUET_SUFFIXES = {".parquet", ".pq"}
-# Cells read as missing, compared case-insensitively after stripping spaces.
-MISSING_TOKENS = frozenset({"", "na", "n/a", "nan", "null", "-"})
 # |r| this close to 1 means one column is an exact linear function of the other.
 PERFECT_CORRELATION = 1.0 - 1e-12
 DECIMAL_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d+)+$|^[+-]?\d+,\d+$")
-# CSV files larger than this are streamed: only the needed columns are kept, parsed to floats as they are
-# read, so memory is 8 bytes per needed cell (plus one line number per row) instead of a string per cell.
-STREAM_THRESHOLD = 256 * 1024 * 1024
-# Text cells are parsed in blocks of this many rows, on both paths, so both give the same floats.
-CHUNK_ROWS = 1 << 16
-BLOCK_BYTES = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -111,21 +99,6 @@ class PairData:
         if self.rows.size == self.x.size:
             return self.rows
         return np.arange(1, self.x.size + 1, dtype=np.int64)
-
-
-@dataclass(frozen=True)
-class ParsedColumn:
-    """A column already parsed to floats while the file was streamed, with what was wrong in it.
-
-    The problems are kept, not raised, so that they surface where and when the
-    text path reports them (``pair_data``), with the same message.
-    """
-
-    values: np.ndarray  # float64, NaN where a cell is missing
-    bad: tuple[tuple[int, str], ...] = ()  # the first three non-numeric cells: (line, cell as written)
-    n_bad: int = 0
-    infinite: tuple[int, str] | None = None  # the first infinite or out-of-range cell
-    tiny: tuple[int, str] | None = None  # the first nonzero number that would be stored as 0
 
 
 @dataclass(frozen=True)
@@ -181,572 +154,6 @@ def _detect_format(path: Path, declared: str) -> str:
     return "csv"
 
 
-# ---------------------------------------------------------------------------- CSV
-
-
-def _line_of(data: bytes, offset: int) -> int:
-    return data[:offset].count(b"\n") + 1
-
-
-def _bom_encoding(data: bytes) -> str:
-    """The encoding a UTF-32 or UTF-16 byte-order mark announces, or "" without one. UTF-32's little-endian
-    mark begins with UTF-16's, so it is looked for first."""
-    if data.startswith((codecs.BOM_UTF32_LE, codecs.BOM_UTF32_BE)):
-        return "utf-32"
-    if data.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
-        return "utf-16"
-    return ""
-
-
-def _unicode_error(path: Path, encoding: str) -> DataError:
-    name = encoding.upper()
-    return DataError(f"{path}: starts like {name} text but is not valid {name}; re-save the file as UTF-8")
-
-
-def _nul_error(path: Path) -> DataError:
-    return DataError(f"{path}: does not look like a CSV text file (it holds NUL bytes); if it is an Excel "
-                     "or Parquet file give it a .xlsx or .parquet name, or set data.format in the spec")
-
-
-def _mixed_error(path: Path, line: int, byte: int) -> DataError:
-    return DataError(f"{path}: the file mixes text encodings: it is UTF-8 up to line {line}, which has the "
-                     f"byte 0x{byte:02X} that is not UTF-8; re-save the whole file as UTF-8")
-
-
-def _decode(path: Path, data: bytes) -> tuple[str, str]:
-    """The encoding that decodes the whole file, and the text (without a byte-order mark).
-
-    UTF-8 first (with or without a BOM), UTF-32 or UTF-16 when it starts with
-    their BOM (UTF-16 is Excel's "Unicode text"), then cp1252 and latin-1 for files that have
-    no UTF-8 at all. A file that is UTF-8 in one place and not in another is
-    refused rather than guessed at. ``_stream_encoding`` makes the same choice
-    block by block.
-    """
-    announced = _bom_encoding(data)
-    if announced:
-        try:
-            return announced, data.decode(announced)
-        except UnicodeDecodeError:
-            raise _unicode_error(path, announced) from None
-    if b"\x00" in data[:65536]:
-        raise _nul_error(path)
-    encoding = "utf-8-sig" if data.startswith(codecs.BOM_UTF8) else "utf-8"
-    try:
-        return encoding, data.decode(encoding)
-    except UnicodeDecodeError as exc:
-        start = exc.start + (len(codecs.BOM_UTF8) if encoding == "utf-8-sig" else 0)  # offsets skip the BOM
-        if encoding == "utf-8-sig" or not data[:start].isascii():
-            raise _mixed_error(path, _line_of(data, start), data[start]) from None
-    for fallback in CSV_ENCODINGS[1:]:
-        try:
-            return fallback, data.decode(fallback)
-        except UnicodeDecodeError:
-            continue
-    raise DataError(f"{path}: could not decode the text (tried {', '.join(CSV_ENCODINGS)}); "
-                    "re-save the file as UTF-8")  # pragma: no cover - latin-1 decodes every byte
-
-
-def _utf8_failure(blocks: Iterator[bytes]) -> tuple[int, int, bool] | None:
-    """Where the concatenated blocks stop being UTF-8: (line, byte, any non-ASCII byte before it), or None."""
-    carry = b""  # the start of a character cut by a block boundary
-    lines, high = 0, False
-    for block in blocks:
-        buffer = carry + block
-        try:
-            buffer.decode("utf-8")
-            valid, carry = len(buffer), b""
-        except UnicodeDecodeError as exc:
-            if exc.end != len(buffer) or exc.reason != "unexpected end of data":
-                head = buffer[: exc.start]
-                return lines + head.count(b"\n") + 1, buffer[exc.start], high or not head.isascii()
-            valid, carry = exc.start, buffer[exc.start:]
-        lines += buffer.count(b"\n", 0, valid)
-        high = high or not buffer[:valid].isascii()
-    return (lines + 1, carry[0], high) if carry else None  # the file ends inside a character
-
-
-def _blocks(handle: BinaryIO, first: bytes) -> Iterator[bytes]:
-    yield first
-    yield from iter(lambda: handle.read(BLOCK_BYTES), b"")
-
-
-def _stream_encoding(path: Path) -> str:
-    """The encoding ``_decode`` would choose, found block by block, with its errors, without holding the file."""
-    try:
-        with path.open("rb") as handle:
-            first = handle.read(max(BLOCK_BYTES, 65536))  # the NUL check looks at 64 KiB
-            announced = _bom_encoding(first)
-            if announced:
-                decoder = codecs.getincrementaldecoder(announced)()
-                try:
-                    for block in _blocks(handle, first):
-                        decoder.decode(block)
-                    decoder.decode(b"", final=True)
-                except UnicodeDecodeError:
-                    raise _unicode_error(path, announced) from None
-                return announced
-            if b"\x00" in first[:65536]:
-                raise _nul_error(path)
-            signed = first.startswith(codecs.BOM_UTF8)
-            failure = _utf8_failure(_blocks(handle, first))
-            if failure is None:
-                return "utf-8-sig" if signed else "utf-8"
-            line, byte, high = failure
-            if signed or high:
-                raise _mixed_error(path, line, byte)
-            handle.seek(0)
-            try:
-                for block in _blocks(handle, b""):
-                    block.decode(CSV_ENCODINGS[1])
-            except UnicodeDecodeError:
-                return CSV_ENCODINGS[2]  # latin-1 decodes every byte
-            return CSV_ENCODINGS[1]
-    except OSError as exc:
-        raise _unreadable(path, exc) from None
-
-
-def _header_delimiter(header: str) -> str:
-    """The common delimiter used most often in the header line outside double quotes; comma if none is."""
-    counts = dict.fromkeys(CSV_DELIMITERS, 0)
-    quoted = False
-    for char in header:
-        if char == '"':
-            quoted = not quoted
-        elif not quoted and char in counts:
-            counts[char] += 1
-    best = max(CSV_DELIMITERS, key=lambda d: counts[d])  # ties go to the earlier, more common one
-    return best if counts[best] > 0 else ","
-
-
-def _width_if_consistent(sample: str, delimiter: str, truncated: bool) -> int:
-    """Fields per row when the first rows all split into the same number of fields; 0 when they do not."""
-    try:
-        rows = [r for r in csv.reader(io.StringIO(sample, newline=""), delimiter=delimiter) if not _is_blank(r)]
-    except csv.Error:
-        return 0
-    rows = rows[:-1] if truncated and len(rows) > 1 else rows  # the sample may end inside a row
-    rows = rows[:50]
-    width = len(rows[0]) if rows else 0
-    for row in rows[1:]:
-        if len(row) != width and not (len(row) > width and not any(c.strip() for c in row[width:])):
-            return 0
-    return width
-
-
-def _delimiter(text: str) -> str:
-    """The delimiter that splits the header and the first rows into the same number (> 1) of fields.
-
-    A header alone can mislead: ``b<TAB>x, mm`` holds one tab and one comma.
-    When no delimiter fits every row (a ragged file), the header decides,
-    so the error about the ragged row names the likely delimiter.
-    """
-    sample = text[:65536]
-    widths = {d: _width_if_consistent(sample, d, len(text) > len(sample)) for d in CSV_DELIMITERS}
-    fitting = [d for d in CSV_DELIMITERS if widths[d] > 1]
-    if fitting:
-        return max(fitting, key=lambda d: widths[d])  # ties go to the earlier, more common one
-    header = next((line for line in io.StringIO(sample, newline="") if line.strip()), "")
-    return _header_delimiter(header)
-
-
-def _is_blank(row: list[str]) -> bool:
-    return not row or (len(row) == 1 and not row[0].strip())
-
-
-def _nfc(name: str) -> str:
-    return unicodedata.normalize("NFC", name)
-
-
-def _nfc_lookup(names: Iterable[str]) -> dict[str, str]:
-    """Each name by its NFC form; header names are unique in that form, so nothing is lost."""
-    return {_nfc(name): name for name in names}
-
-
-def _header_names(cells: list[object], where: str, path: Path) -> list[str]:
-    """Column names from a header row: stripped, no repeats (also none that differ only in Unicode form), a
-    blank cell named `Unnamed: <position from 0>` like pandas does, or `Unnamed: 0.1` when the header already
-    has a column called `Unnamed: 0` (a file saved twice with its row index)."""
-    texts = []
-    for cell in cells:
-        text = "" if cell is None or (isinstance(cell, float) and np.isnan(cell)) else str(cell)
-        texts.append(text.strip().lstrip("\ufeff").strip())
-    taken = {_nfc(text) for text in texts if text}
-    names = []
-    for index, text in enumerate(texts):
-        if not text:
-            text, copy = f"Unnamed: {index}", 0
-            while text in taken:
-                copy += 1
-                text = f"Unnamed: {index}.{copy}"
-            taken.add(text)
-        names.append(text)
-    first_seen: dict[str, int] = {}
-    for index, name in enumerate(names):
-        earlier = first_seen.get(_nfc(name))
-        if earlier is not None and names[earlier] == name:
-            raise DataError(f"{path}: the column name `{name}` appears more than once in the header ({where}, "
-                            f"columns {earlier + 1} and {index + 1}); rename one")
-        if earlier is not None:
-            raise DataError(f"{path}: columns {earlier + 1} and {index + 1} of the header ({where}) are both named "
-                            f"`{name}`, written with different Unicode characters (an accent stored as part of "
-                            "its letter in one, as a separate mark in the other); rename one")
-        first_seen[_nfc(name)] = index
-    return names
-
-
-def _unreadable(path: Path, exc: OSError) -> DataError:
-    return DataError(f"{path}: the data file cannot be read ({exc.strerror or type(exc).__name__}); "
-                     "check its permissions")
-
-
-def _read_bytes(path: Path) -> bytes:
-    try:
-        return path.read_bytes()
-    except OSError as exc:
-        raise _unreadable(path, exc) from None
-
-
-def _fit_row(path: Path, row: list[str], line: int, width: int, named: int, header_at: int,
-             delimiter: str) -> list[str]:
-    """A row whose field count differs from the header's: trailing delimiters are dropped, fields missing
-    under unnamed trailing columns are blank, anything else is an error that names the line."""
-    if len(row) > width and not any(cell.strip() for cell in row[width:]):
-        return row[:width]
-    if named <= len(row) < width:
-        return row + [""] * (width - len(row))
-    if len(row) < named and any("\n" in cell or "\r" in cell for cell in row):
-        raise DataError(f"{path}: line {line} opens a double quote that is never closed, so the rest "
-                        "of the file reads as one value; close the quote or remove it")
-    name = DELIMITER_NAMES[delimiter]
-    raise DataError(f"{path}: line {line} has {len(row)} {name}-separated field{'' if len(row) == 1 else 's'} "
-                    f"but the header (line {header_at}) has {width}; give every row the same number of fields, "
-                    f"and put double quotes around any value that contains a {name}")
-
-
-def _csv_rows(path: Path, lines: Iterable[str], delimiter: str) -> Iterator[tuple[int, list[str]]]:
-    """The header (its line number and the column names), then each data row, fitted to the header's width,
-    with the line it starts on (header = line 1, a quoted value spanning lines counts from its first line).
-    Yields nothing when every line is blank."""
-    reader = csv.reader(lines, delimiter=delimiter)
-    width = -1  # fields per row, once the header is read
-    named = 0  # fields up to the header's last named column: a shorter row is refused
-    header_at = previous = 0
-    try:
-        for row in reader:
-            start, previous = previous + 1, reader.line_num  # a quoted value may span lines
-            if len(row) == width:
-                yield start, row
-            elif _is_blank(row):
-                continue
-            elif width < 0:
-                names = _header_names(list(row), f"line {start}", path)
-                width = len(names)
-                named = max(i + 1 for i, cell in enumerate(row) if cell.strip() or i == 0)
-                header_at = start
-                yield start, names
-            else:
-                yield start, _fit_row(path, row, start, width, named, header_at, delimiter)
-    except csv.Error as exc:
-        raise DataError(f"{path}: line {reader.line_num} cannot be read as CSV ({exc}); check its quotes "
-                        "and characters") from None
-
-
-def _no_rows(path: Path) -> DataError:
-    return DataError(f"{path}: the table has a header but no data rows; add the data below the header")
-
-
-def _empty(path: Path) -> DataError:
-    return DataError(f"{path}: the file is empty; it needs a header row and data rows")
-
-
-def _read_csv(path: Path) -> tuple[pd.DataFrame, str, str]:
-    """The table as text cells indexed by line number, with the encoding and delimiter used."""
-    data = _read_bytes(path)
-    encoding, text = _decode(path, data)
-    if not text.strip():
-        raise _empty(path)
-    delimiter = _delimiter(text)
-    records = _csv_rows(path, io.StringIO(text, newline=""), delimiter)
-    names = next(records, (0, []))[1]
-    lines: list[int] = []
-    rows: list[list[str]] = []
-    for line, row in records:
-        lines.append(line)
-        rows.append(row)
-    if not rows:
-        raise _no_rows(path)
-    frame = pd.DataFrame(rows, columns=names, index=pd.Index(lines, name="line"), dtype=object)
-    return frame, encoding, delimiter
-
-
-class _ColumnParser:
-    """Collects one column's parsed blocks and the first of its problems, for a streamed file."""
-
-    def __init__(self) -> None:
-        self.blocks: list[np.ndarray] = []
-        self.bad: list[tuple[int, str]] = []
-        self.n_bad = 0
-        self.infinite: tuple[int, str] | None = None
-        self.tiny: tuple[int, str] | None = None
-
-    def add(self, cells: list[str], lines: list[int]) -> None:
-        values, bad_mask, tiny_mask = _parse_cells(pd.Series(cells, dtype=object))
-        self.blocks.append(values)
-        bad = np.flatnonzero(bad_mask)
-        self.n_bad += bad.size
-        self.bad.extend((lines[p], cells[p]) for p in bad[: max(0, 3 - len(self.bad))])
-        infinite = np.flatnonzero(np.isinf(values))
-        if self.infinite is None and infinite.size:
-            self.infinite = (lines[infinite[0]], cells[infinite[0]])
-        tiny = np.flatnonzero(tiny_mask)
-        if self.tiny is None and tiny.size:
-            self.tiny = (lines[tiny[0]], cells[tiny[0]])
-
-    def result(self) -> ParsedColumn:
-        values = np.concatenate(self.blocks)
-        self.blocks.clear()
-        return ParsedColumn(values=values, bad=tuple(self.bad), n_bad=self.n_bad, infinite=self.infinite,
-                            tiny=self.tiny)
-
-
-def _stream_csv(path: Path, wanted: tuple[str, ...]) -> tuple[pd.DataFrame, list[str], dict[str, ParsedColumn],
-                                                             str, str]:
-    """A large CSV file read row by row: the line numbers, the column names, the wanted columns parsed to
-    floats (those the header has), the encoding and the delimiter. Refuses what ``_read_csv`` refuses, with
-    the same messages; problems in a column's cells are kept for ``pair_data`` to report, as it does for text
-    cells."""
-    encoding = _stream_encoding(path)
-    try:
-        with path.open(encoding=encoding, newline="") as handle:
-            delimiter = _delimiter(handle.read(65537))  # what _delimiter reads of the whole text
-        with path.open(encoding=encoding, newline="") as handle:
-            records = _csv_rows(path, handle, delimiter)
-            header = next(records, None)
-            if header is None:  # only blank rows: whitespace only, or blank quoted values
-                handle.seek(0)
-                if not any(block.strip() for block in iter(lambda: handle.read(BLOCK_BYTES), "")):
-                    raise _empty(path)
-                raise _no_rows(path)
-            names = header[1]
-            lookup = _nfc_lookup(names)
-            kept = list(dict.fromkeys(lookup[_nfc(name)] for name in wanted if _nfc(name) in lookup))
-            getter = operator.itemgetter(*(names.index(name) for name in kept)) if kept else None
-            parsers = {name: _ColumnParser() for name in kept}
-            line_blocks: list[np.ndarray] = []
-            lines: list[int] = []
-            cells: list = []  # the kept cells of each row: a tuple, or one cell when one column is kept
-
-            def flush() -> None:
-                columns = [cells] if len(kept) == 1 else list(zip(*cells, strict=True))
-                for name, column in zip(kept, columns, strict=True):
-                    parsers[name].add(list(column), lines)
-                line_blocks.append(np.array(lines, dtype=np.int64))
-                lines.clear()
-                cells.clear()
-
-            for line, row in records:
-                lines.append(line)
-                if getter is not None:
-                    cells.append(getter(row))
-                if len(lines) == CHUNK_ROWS:
-                    flush()
-            if lines:
-                flush()
-    except OSError as exc:
-        raise _unreadable(path, exc) from None
-    if not line_blocks:
-        raise _no_rows(path)
-    frame = pd.DataFrame(index=pd.Index(np.concatenate(line_blocks), name="line"))
-    return frame, names, {name: parser.result() for name, parser in parsers.items()}, encoding, delimiter
-
-
-# ------------------------------------------------------------------ Excel, Parquet
-
-
-OLD_EXCEL_SIGNATURE = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"  # the container of old-style .xls workbooks
-
-
-@dataclass(frozen=True)
-class SheetProblem:
-    """A sheet cell that is not blank but holds no number to read: a formula's error (``#DIV/0!``), or a
-    formula whose value was never saved (a file written by a program that does not calculate). It stays in
-    the frame, so the column's check refuses it with its address, as a CSV column's text is refused."""
-
-    address: str  # e.g. "B5"
-    text: str  # the error as the sheet shows it, or the formula
-    kind: str  # "error" or "formula"
-
-    def __str__(self) -> str:
-        return self.text
-
-    def describe(self) -> str:
-        if self.kind == "error":
-            return f"{self.address} (the error {self.text[:20]})"
-        return f"{self.address} (the formula {self.text[:20]!r}, whose value was never saved)"
-
-
-def _load_workbook(handle: BinaryIO, data_only: bool) -> Any:  # an openpyxl Workbook
-    import openpyxl
-
-    handle.seek(0)  # a handle, not the path: openpyxl would refuse a data.format = "excel" file by its suffix
-    return openpyxl.load_workbook(handle, read_only=True, data_only=data_only, keep_links=False)
-
-
-def _charts_only(path: Path) -> DataError:
-    return DataError(f"{path}: the workbook holds only chart sheets, no worksheet with a table; point "
-                     "data.path at the workbook (or a CSV export) that holds the data")
-
-
-def _unreadable_workbook(path: Path, handle: BinaryIO, exc: Exception) -> DataError:
-    """Why opening failed, as far as the file's parts tell: openpyxl fails on a chart sheet without a chart."""
-    try:
-        handle.seek(0)
-        with zipfile.ZipFile(handle) as archive:
-            parts = archive.namelist()
-    except Exception:  # not a zip archive at all
-        parts = []
-    if any(n.startswith("xl/chartsheets/") for n in parts) and not any(n.startswith("xl/worksheets/") for n in parts):
-        return _charts_only(path)
-    return DataError(f"{path}: not a readable Excel workbook ({type(exc).__name__}); re-save it from a "
-                     "spreadsheet program as .xlsx, or set data.format if it is not Excel")
-
-
-def _choose_sheet(path: Path, book: Any, sheet: str) -> str:
-    """The worksheet to read: the one data.sheet names, or the only one; chart sheets hold no table."""
-    sheets = [str(ws.title) for ws in book.worksheets]
-    charts = [str(cs.title) for cs in book.chartsheets]
-    if not sheets:
-        raise _charts_only(path)
-    listed = ", ".join(f"`{name}`" for name in sheets)
-    if sheet in charts:
-        raise DataError(f"{path}: sheet `{sheet}` (data.sheet) is a chart sheet, which holds no table; the "
-                        f"worksheets are: {listed}")
-    if sheet:
-        if sheet not in sheets:
-            close = difflib.get_close_matches(sheet, sheets, n=1, cutoff=0.5)
-            hint = f" Did you mean `{close[0]}`?" if close else ""
-            raise DataError(f"{path}: no sheet named `{sheet}` (data.sheet); the sheets are: {listed}.{hint}")
-        return sheet
-    if len(sheets) == 1:
-        return sheets[0]
-    raise DataError(f"{path}: the workbook has {len(sheets)} sheets ({listed}); name the one to use "
-                    "with data.sheet in the spec, e.g. sheet = " + repr(sheets[0]).replace("'", '"'))
-
-
-def _sheet_values(sheet: Any) -> tuple[list[list[object]], set[tuple[int, int]]]:
-    """Each sheet row's cell values (saved formula values, errors as ``SheetProblem``), and the cells that
-    are present but empty, which is how a formula without a saved value reads. A formula's saved empty text
-    (type "str") is a blank cell, not one of those."""
-    from openpyxl.cell.read_only import EMPTY_CELL
-    from openpyxl.utils import get_column_letter
-
-    sheet.reset_dimensions()  # declared dimensions can be wrong
-    rows: list[list[object]] = []
-    empty: set[tuple[int, int]] = set()
-    for row, cells in enumerate(sheet.iter_rows(), start=1):
-        values: list[object] = []
-        for column, cell in enumerate(cells, start=1):
-            value = cell.value
-            if value is None and cell is not EMPTY_CELL and cell.data_type != "str":
-                empty.add((row, column))
-            elif cell.data_type == "e":
-                value = SheetProblem(f"{get_column_letter(column)}{row}", str(value), "error")
-            values.append(value)
-        rows.append(values)
-    return rows, empty
-
-
-def _mark_unsaved_formulas(sheet: Any, rows: list[list[object]], empty: set[tuple[int, int]]) -> None:
-    """Replace the empty cells that hold a formula (read with formulas, not values) by a ``SheetProblem``."""
-    from openpyxl.utils import get_column_letter
-
-    last = max(row for row, _ in empty)
-    sheet.reset_dimensions()
-    for row, cells in enumerate(sheet.iter_rows(), start=1):
-        if row > last:
-            break
-        for column, cell in enumerate(cells, start=1):
-            if cell.data_type == "f" and (row, column) in empty:
-                formula = str(getattr(cell.value, "text", cell.value))  # array formulas keep theirs in .text
-                rows[row - 1][column - 1] = SheetProblem(f"{get_column_letter(column)}{row}", formula, "formula")
-
-
-def _excel_rows(path: Path, handle: BinaryIO, sheet: str) -> tuple[list[list[object]], str]:
-    try:
-        book = _load_workbook(handle, data_only=True)
-    except Exception as exc:  # openpyxl raises many types for a broken workbook
-        raise _unreadable_workbook(path, handle, exc) from None
-    try:
-        chosen = _choose_sheet(path, book, sheet)
-        try:
-            rows, empty = _sheet_values(book[chosen])
-            if empty:  # only then can a formula lack its value; finding one needs a second reading
-                formulas = _load_workbook(handle, data_only=False)
-                try:
-                    _mark_unsaved_formulas(formulas[chosen], rows, empty)
-                finally:
-                    formulas.close()
-        except Exception as exc:  # a damaged sheet
-            raise DataError(f"{path}: sheet `{chosen}` cannot be read as a table ({type(exc).__name__}); "
-                            "re-save the workbook from a spreadsheet program, or choose another sheet") from None
-    finally:
-        book.close()
-    return rows, chosen
-
-
-def _read_excel(path: Path, sheet: str) -> tuple[pd.DataFrame, str]:
-    """The chosen sheet with its first non-empty row as the header, indexed by sheet row number."""
-    try:
-        with path.open("rb") as handle:
-            if handle.read(len(OLD_EXCEL_SIGNATURE)) == OLD_EXCEL_SIGNATURE:
-                raise DataError(f"{path}: old-style .xls workbooks cannot be read; open it in Excel and save it "
-                                "as .xlsx (or export the sheet as CSV)")
-            with warnings.catch_warnings():  # openpyxl's notes on unsupported features are not the user's
-                warnings.simplefilter("ignore")
-                rows, chosen = _excel_rows(path, handle, sheet)
-    except OSError as exc:
-        raise _unreadable(path, exc) from None
-    width = max((len(row) for row in rows), default=0)
-    raw = pd.DataFrame([row + [None] * (width - len(row)) for row in rows], dtype=object)
-    raw = raw.dropna(axis=0, how="all").dropna(axis=1, how="all")
-    if raw.empty:
-        raise DataError(f"{path}: sheet `{chosen}` is empty; put a header row and data rows on it, "
-                        "or name another sheet with data.sheet")
-    header_row = int(raw.index[0]) + 1
-    names = _header_names(list(raw.iloc[0]), f"row {header_row} of sheet `{chosen}`", path)
-    frame = raw.iloc[1:].copy()
-    frame.columns = names
-    frame.index = pd.Index([int(i) + 1 for i in frame.index], name="row")
-    return frame, chosen
-
-
-def _read_parquet(path: Path, wanted: tuple[str, ...]) -> tuple[pd.DataFrame, list[str]]:
-    """The wanted columns that the file has (only those are read), and the names of all its columns."""
-    import pyarrow.parquet as pq
-
-    def unreadable(exc: Exception) -> DataError:
-        return DataError(f"{path}: not a readable Parquet file ({type(exc).__name__}); export it again, or set "
-                         "data.format if it is not Parquet")
-
-    try:
-        schema = pq.read_schema(path)
-        stored_index = (schema.pandas_metadata or {}).get("index_columns", [])
-    except Exception as exc:  # pyarrow raises its own types for a broken file
-        raise unreadable(exc) from None
-    stored = [name for name in schema.names if name not in stored_index]
-    names = _header_names(stored, "the Parquet schema", path)  # repeated names are refused here, by name
-    keys = {_nfc(name) for name in wanted}
-    chosen = [index for index, name in enumerate(names) if _nfc(name) in keys]
-    try:
-        frame = pd.read_parquet(path, columns=[stored[index] for index in chosen])
-    except Exception as exc:
-        raise unreadable(exc) from None
-    frame = frame.reset_index(drop=True)
-    frame.columns = [names[index] for index in chosen]
-    frame.index = pd.RangeIndex(1, len(frame) + 1, name="row")
-    return frame, names
-
-
 # ------------------------------------------------------------------------ columns
 
 
@@ -769,7 +176,7 @@ def _column_list(available: list[str]) -> str:
 
 
 def _require_column(path: Path, available: list[str], column: str, where: str, restricted: bool = False) -> None:
-    if column in available or _nfc(column) in _nfc_lookup(available):
+    if column in available or nfc(column) in nfc_lookup(available):
         return
     close = difflib.get_close_matches(column, available, n=3, cutoff=0.5)
     hint = f"; close matches: {', '.join(close)}" if close else ""
@@ -824,12 +231,13 @@ def _data_column(table: Table, column: str) -> str:
     names = table.parsed.keys() if table.parsed is not None else table.frame.columns
     if column in names:
         return column
-    return _nfc_lookup(names).get(_nfc(column), column)
+    return nfc_lookup(names).get(nfc(column), column)
 
 
 def load_table(spec: Spec) -> Table:
     """Read the spec's data file as text cells; numeric parsing happens per column. A CSV file larger than
-    ``STREAM_THRESHOLD`` bytes is streamed instead, keeping only the needed columns, already as floats."""
+    ``reportgen.io.csv.STREAM_THRESHOLD`` bytes is streamed instead, keeping only the needed columns, already
+    as floats."""
     source = spec.document.data
     path = _data_file(spec)
     kind = _detect_format(path, source.format)
@@ -840,18 +248,15 @@ def load_table(spec: Spec) -> Table:
                         "remove data.sheet or point data.path at the workbook")
     wanted = spec.columns_needed
     parsed = None
-    if kind == "csv" and path.stat().st_size > STREAM_THRESHOLD:
-        frame, available, parsed, encoding, delimiter = _stream_csv(path, wanted)
-    elif kind == "csv":
-        frame, encoding, delimiter = _read_csv(path)
-        available = list(frame.columns)
+    if kind == "csv":
+        frame, available, parsed, encoding, delimiter = read_csv_table(path, wanted)
     elif kind == "excel":
-        frame, sheet = _read_excel(path, source.sheet)
+        frame, sheet = read_excel(path, source.sheet)
         available = list(frame.columns)
     else:
-        frame, available = _read_parquet(path, wanted)
+        frame, available = read_parquet(path, wanted)
     if len(frame) == 0:
-        raise _no_rows(path)
+        raise no_rows(path)
     for column in spec.document.variables:
         _require_column(path, available, column, f"variables.{column}")
     kept = available
@@ -859,8 +264,8 @@ def load_table(spec: Spec) -> Table:
         for column in source.columns:
             _require_column(path, available, column, "data.columns")
         kept = list(source.columns)
-    lookup = _nfc_lookup(frame.columns)
-    frame = frame.loc[:, list(dict.fromkeys(lookup[_nfc(c)] for c in kept if _nfc(c) in lookup))]
+    lookup = nfc_lookup(frame.columns)
+    frame = frame.loc[:, list(dict.fromkeys(lookup[nfc(c)] for c in kept if nfc(c) in lookup))]
     for column in wanted:
         _require_column(path, kept, column, _key_paths(spec, column), bool(source.columns))
     return Table(path=path, sha256=file_sha256(path), frame=frame, encoding=encoding, sheet=sheet,
@@ -871,27 +276,6 @@ def _cells(cells: Iterable[tuple[object, object]]) -> str:
     return ", ".join(f"row {row} ({str(cell)[:20]!r})" for row, cell in cells)
 
 
-def _parse_cells(raw: pd.Series) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Cells as floats (NaN where missing), where a cell is not a number, and where a nonzero number was
-    read as 0 because it is below the smallest subnormal double (``1e-400``).
-
-    Parsed in blocks of ``CHUNK_ROWS`` rows: pandas parses integers apart from
-    other numbers, so the blocks keep a streamed file's floats equal to these.
-    """
-    values, bad, tiny = [np.empty(0)], [np.zeros(0, dtype=bool)], [np.zeros(0, dtype=bool)]
-    for start in range(0, len(raw), CHUNK_ROWS):
-        text = raw.iloc[start:start + CHUNK_ROWS].astype("string").str.strip()
-        missing = (text.isna() | text.str.lower().isin(MISSING_TOKENS)).to_numpy(dtype=bool)
-        parsed = pd.to_numeric(text.mask(missing), errors="coerce").to_numpy(dtype=float, na_value=np.nan)
-        values.append(parsed)
-        bad.append(~missing & np.isnan(parsed))
-        zero = parsed == 0
-        underflow = np.zeros(parsed.size, dtype=bool)
-        if zero.any():  # a zero whose digits before the exponent are not all 0 was written as a nonzero number
-            mantissa = text[zero].str.replace(r"[eE].*$", "", regex=True)
-            underflow[zero] = mantissa.str.contains("[1-9]", regex=True).to_numpy(dtype=bool, na_value=False)
-        tiny.append(underflow)
-    return np.concatenate(values), np.concatenate(bad), np.concatenate(tiny)
 
 
 def _refuse_sheet_problems(table: Table, column: str, raw: pd.Series) -> None:
@@ -925,7 +309,7 @@ def _numeric_column(table: Table, column: str) -> np.ndarray:
         else:
             if table.sheet:
                 _refuse_sheet_problems(table, column, raw)
-            values, bad_mask, tiny_mask = _parse_cells(raw)
+            values, bad_mask, tiny_mask = parse_cells(raw)
             positions = np.flatnonzero(bad_mask)
         bad = tuple((raw.index[p], raw.iloc[p]) for p in positions[:3])
         n_bad = positions.size

@@ -25,9 +25,9 @@ import pyarrow.parquet as pq
 import pytest
 from openpyxl.chart import BarChart, Reference
 
-from reportgen import data
 from reportgen.data import load_pairs, load_table
 from reportgen.errors import DataError
+from reportgen.io import csv as csv_reader
 from reportgen.spec import load_spec
 from tests.conftest import write_spec
 from tests.test_bad_input import PAIR_AB, accepted, check_refuses, refused, run_refuses
@@ -43,7 +43,7 @@ def both_ways(spec_path: Path, monkeypatch: pytest.MonkeyPatch) -> tuple:
     """The data stage's outcome read whole and streamed (the threshold lowered): they must agree."""
     outcomes = []
     for threshold in (1 << 62, -1):
-        monkeypatch.setattr(data, "STREAM_THRESHOLD", threshold)
+        monkeypatch.setattr(csv_reader, "STREAM_THRESHOLD", threshold)
         spec = load_spec(spec_path)
         try:
             table = load_table(spec)

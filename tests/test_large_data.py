@@ -20,9 +20,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from reportgen import data
 from reportgen.data import load_pairs, load_table
 from reportgen.errors import DataError
+from reportgen.io import csv as csv_reader
+from reportgen.io import text as text_reader
 from reportgen.spec import load_spec
 from tests.conftest import write_spec
 
@@ -45,7 +46,7 @@ y = "c"
 
 def outcome(spec_path: Path, monkeypatch: pytest.MonkeyPatch, *, streamed: bool) -> tuple:
     """Everything the data stage hands on, or its error message."""
-    monkeypatch.setattr(data, "STREAM_THRESHOLD", -1 if streamed else 1 << 62)
+    monkeypatch.setattr(csv_reader, "STREAM_THRESHOLD", -1 if streamed else 1 << 62)
     spec = load_spec(spec_path)
     try:
         table = load_table(spec)
@@ -112,7 +113,7 @@ def test_streamed_csv_is_read_the_same(tmp_path: Path, monkeypatch: pytest.Monke
 @pytest.mark.parametrize("case", ["missing cells", "many bad cells", "big integers", "infinity"])
 def test_chunk_boundaries_do_not_matter(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, case: str) -> None:
     """Cells parsed in blocks of a few rows, as a large file is: still the same."""
-    monkeypatch.setattr(data, "CHUNK_ROWS", 3)
+    monkeypatch.setattr(csv_reader, "CHUNK_ROWS", 3)
     same_both_ways(write(tmp_path, CASES[case], THREE_PAIRS), monkeypatch)
 
 
@@ -131,7 +132,7 @@ def test_missing_policy_fail_and_data_columns(tmp_path: Path, monkeypatch: pytes
 @pytest.mark.parametrize("encoding", ["cp1252", "latin-1", "utf-16", "utf-8-sig"])
 def test_encodings_found_block_by_block(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, encoding: str) -> None:
     """The only non-ASCII character comes last, far past the first block: the whole file decides."""
-    monkeypatch.setattr(data, "BLOCK_BYTES", 7)
+    monkeypatch.setattr(text_reader, "BLOCK_BYTES", 7)
     rows = "".join(f"{i},{(i * 7) % 11},{i % 3}\n" for i in range(3000))
     last = {"cp1252": "\u20ac", "latin-1": "\x81"}.get(encoding, "\u00e9")  # 0x81 is not cp1252
     content = ("a,b,c\n" + rows + f"9,1,{last}\n").encode(encoding)
@@ -142,7 +143,7 @@ def test_encodings_found_block_by_block(tmp_path: Path, monkeypatch: pytest.Monk
 @pytest.mark.parametrize("offset", range(6))
 def test_mixed_encoding_found_across_blocks(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, offset: int) -> None:
     """UTF-8 characters cut by block boundaries are fine; a cp1252 byte later is refused with its line."""
-    monkeypatch.setattr(data, "BLOCK_BYTES", 5)
+    monkeypatch.setattr(text_reader, "BLOCK_BYTES", 5)
     head = "a,b,c\n" + "x" * offset
     content = (head + "\n1,2,\u00e9\u20ac\n2,1,x\n3,4,x\n4,3,x\n").encode() + "5,5,\u00e9\n".encode("cp1252")
     for prefix in (b"", codecs.BOM_UTF8):
@@ -187,8 +188,9 @@ def write_large_csv(path: Path, rows: int, seed: int) -> np.ndarray:
 MEASURE = """
 import json, resource, sys, time
 from reportgen import data
+from reportgen.io import csv as csv_reader
 from reportgen.spec import load_spec
-data.STREAM_THRESHOLD = int(sys.argv[2])
+csv_reader.STREAM_THRESHOLD = int(sys.argv[2])
 spec = load_spec(sys.argv[1])
 before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 started = time.perf_counter()
