@@ -5,9 +5,10 @@ pair's fits with its model checks, prior sensitivity and the choice of the leadi
 and ``table`` lays the results out as the rows of results.csv.
 """
 
-from reportgen.results.choice import FitSummary, ModelChoice
 from reportgen.results.outcome import pair_outcome, sampled_models
 from reportgen.results.pair import (
+    FitSummary,
+    ModelChoice,
     PairResult,
     ParameterSummary,
     RuleOutcome,

@@ -8,13 +8,11 @@ reader is told in one sentence why this one leads and whether the two agree.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
 from reportgen import interpret
 from reportgen.checks.summary import ModelChecks
-from reportgen.results.pair import PairResult
+from reportgen.results.pair import FitSummary, ModelChoice, PairResult
 
 MODEL_SHORT_NAMES = {"normal": "normal", "student_t": "robust t", "rank": "rank"}
 MODEL_NAMES = {
@@ -24,38 +22,11 @@ MODEL_NAMES = {
 }
 
 
-@dataclass(frozen=True)
-class FitSummary:
-    """One model's rho for a pair, as shown beside the leading fit."""
-
-    model: str
-    name: str  # in words, e.g. "robust (Student-t)"
-    median: float
-    lower: float
-    upper: float
-    status: str
-    engine: str
-    verdicts: tuple[tuple[str, str], ...]  # (rule name, "met"/"not met")
-
-    @classmethod
-    def of(cls, result: PairResult) -> FitSummary:
-        return cls(model=result.model, name=MODEL_NAMES[result.model], median=result.rho.median,
-                   lower=result.rho.lower, upper=result.rho.upper, status=result.status, engine=result.engine,
-                   verdicts=tuple((rule.name, rule.verdict) for rule in result.rules))
-
-
-@dataclass(frozen=True)
-class ModelChoice:
-    leading: str  # the model whose numbers lead
-    requested: str  # the spec's model for the pair: normal, student_t, rank or auto
-    sentence: str
-    others: tuple[FitSummary, ...]
-    robust: FitSummary | None  # the robust fit when one ran (results.csv's robust_rho_* columns)
-    agrees: bool  # the robust fit's median is within the influence threshold of the normal one's
-
-    @property
-    def robust_differs(self) -> bool:
-        return self.robust is not None and not self.agrees
+def fit_summary(result: PairResult) -> FitSummary:
+    """One fit's rho for a pair, as shown beside the leading fit."""
+    return FitSummary(model=result.model, name=MODEL_NAMES[result.model], median=result.rho.median,
+                      lower=result.rho.lower, upper=result.rho.upper, status=result.status, engine=result.engine,
+                      verdicts=tuple((rule.name, rule.verdict) for rule in result.rules))
 
 
 def _interval(fit: FitSummary) -> str:
@@ -89,25 +60,25 @@ def choose(
     if requested == "auto" and alternative is not None and checks.flags_normal:
         leading, other = alternative, normal
         sentence = (f"The {MODEL_NAMES[alternative.model]} fit leads because {reasons}; the normal model gives "
-                    f"{_interval(FitSummary.of(normal))}.")
+                    f"{_interval(fit_summary(normal))}.")
     elif requested == "auto" and alternative is not None:
         leading, other = normal, alternative
         word = "agrees" if agrees else "differs"
         sentence = (f"The normal fit leads: the checks found no outlying or influential rows and no clear "
                     f"departure from its shape. The {MODEL_NAMES[alternative.model]} fit {word} "
-                    f"({_interval(FitSummary.of(alternative))}).")
+                    f"({_interval(fit_summary(alternative))}).")
     elif requested in ("student_t", "rank") and alternative is not None:
         leading, other = alternative, normal
         basis = "the exact engine" if normal.engine == "exact" else "the sampler"
         sentence = (f"The spec asks for the {MODEL_NAMES[alternative.model]} model; the normal model "
-                    f"(by {basis}) gives {_interval(FitSummary.of(normal))}.")
+                    f"(by {basis}) gives {_interval(fit_summary(normal))}.")
     else:
         leading, other = normal, None
         sentence = ""
         if checks.flags_normal:
             sentence = (f"The checks flag the normal model ({reasons}): consider model = \"auto\" or "
                         "\"student_t\", which would show a robust fit beside this one.")
-    others = (FitSummary.of(other),) if other is not None else ()
+    others = (fit_summary(other),) if other is not None else ()
     if other is not None:
         sentence += _verdict_change(leading, others[0])
     if leading.model == "student_t" and "nu" in leading.parameters:
@@ -118,7 +89,7 @@ def choose(
         sentence += " " + interpret.tails_sentence(nu.median, nu.lower, nu.upper)
     choice = ModelChoice(
         leading=leading.model, requested=requested, sentence=sentence.strip(), others=others,
-        robust=FitSummary.of(alternative) if alternative is not None else None, agrees=agrees)
+        robust=fit_summary(alternative) if alternative is not None else None, agrees=agrees)
     return leading, choice
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import time
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 
@@ -18,9 +18,6 @@ from reportgen.diagnostics import NOT_SAMPLED, STATUS_ORDER, Diagnosis, diagnose
 from reportgen.fit import PairFit, derive_seed
 from reportgen.models.rank import rank_posterior
 from reportgen.spec import Spec
-
-if TYPE_CHECKING:  # choice.py builds on this module, so its type is named for the checker only
-    from reportgen.results.choice import ModelChoice
 
 R_LIMIT = 1.0 - 1e-9  # the exact engine's domain; the data stage refuses |r| this close to 1
 PARAMETER_BOUNDS = {"rho": (-1.0, 1.0), "tau": (-1.0, 1.0), "sigma_x": (0.0, None), "sigma_y": (0.0, None),
@@ -47,6 +44,34 @@ class RuleOutcome:
     required: float
     verdict: str
     sentence: str
+
+
+@dataclass(frozen=True)
+class FitSummary:
+    """One model's rho for a pair, as shown beside the leading fit."""
+
+    model: str
+    name: str  # in words, e.g. "robust (Student-t)"
+    median: float
+    lower: float
+    upper: float
+    status: str
+    engine: str
+    verdicts: tuple[tuple[str, str], ...]  # (rule name, "met"/"not met")
+
+
+@dataclass(frozen=True)
+class ModelChoice:
+    leading: str  # the model whose numbers lead
+    requested: str  # the spec's model for the pair: normal, student_t, rank or auto
+    sentence: str
+    others: tuple[FitSummary, ...]
+    robust: FitSummary | None  # the robust fit when one ran (results.csv's robust_rho_* columns)
+    agrees: bool  # the robust fit's median is within the influence threshold of the normal one's
+
+    @property
+    def robust_differs(self) -> bool:
+        return self.robust is not None and not self.agrees
 
 
 @dataclass(frozen=True)
