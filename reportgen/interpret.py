@@ -274,11 +274,14 @@ def tails_sentence(nu_median: float, nu_lower: float, nu_upper: float) -> str:
     if nu_upper < 10:
         return (f"The degrees of freedom are small {span}: the data have clearly heavier tails than a normal "
                 "distribution, so rows far from the rest are common and the normal model would overweight them.")
+    if nu_lower >= 10:
+        return (f"The degrees of freedom are large {span}: the tails look close to those of a normal distribution, "
+                "so the robust and the normal model should agree.")
     if nu_median < 20:
         return (f"The degrees of freedom are moderate {span}: the tails look somewhat heavier than normal, "
                 "though the data cannot rule out near-normal tails.")
-    return (f"The degrees of freedom are large {span}: the tails look close to those of a normal distribution, "
-            "so the robust and the normal model should agree.")
+    return (f"The data cannot tell heavier tails from normal ones {span}: the interval still spans both, so "
+            "this part of the estimate leans on the prior.")
 
 
 def joined(parts: list[str]) -> str:

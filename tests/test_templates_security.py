@@ -288,3 +288,26 @@ def test_template_folder_that_is_a_link_loop_is_refused(tmp_path: Path) -> None:
     assert result.exit_code == 2
     assert "back to itself" in result.output and "report.templates" in result.output
     assert "Traceback" not in result.output and len(result.output.strip().splitlines()) == 1
+
+
+@pytest.mark.parametrize(("payload", "expected"), [
+    ("{{ (9**999999999) > 1 }}", "exponent 999999999"),
+    ("{{ ('x'*10**6)*10**5 }}", "more than 1,000,000 items"),
+    ("{{ [0] * 10**9 }}", "more than 1,000,000 items"),
+], ids=["huge-power", "huge-string", "huge-list"])
+def test_template_arithmetic_that_would_hang_or_fill_memory_is_refused(tmp_path: Path, payload: str,
+                                                                         expected: str) -> None:
+    """9 ** 999999999 ran for minutes and 'x' * 10 ** 11 filled memory: both are bounded before computing."""
+    run_refused(project(tmp_path, {"_title.html.j2": payload + "\n"}), "_title.html.j2, line 1", expected)
+
+
+def test_ordinary_template_arithmetic_still_works(tmp_path: Path) -> None:
+    from click.testing import CliRunner
+
+    from reportgen.cli import main
+
+    spec = project(tmp_path, {"_title.html.j2": "<h1>{{ 2 ** 10 * 3 }} {{ 'ab' * 3 }}</h1>\n"})
+    result = CliRunner().invoke(main, ["run", str(spec), "--out", str(tmp_path / "out"), "--engine", "exact"])
+    assert result.exit_code == 0, result.output
+    html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    assert "3072 ababab" in html

@@ -163,5 +163,6 @@ def discreteness(values: np.ndarray, *, max_distinct: int = 10, max_tied_share: 
     return Discreteness(
         distinct=int(counts.size),
         tied_share=tied_share,
-        discrete=bool(counts.size <= max_distinct or tied_share >= max_tied_share),
+        # few levels count only where values repeat: ten rows with ten different values are not coarse
+        discrete=bool((counts.size <= max_distinct and counts.size < flat.size) or tied_share >= max_tied_share),
     )

@@ -28,9 +28,11 @@ WARNING_TITLES = {
 MAX_LABELLED_ROWS = 12
 
 
-def _p(value: float) -> str:
+def _p(value: float, resolution: float = 1e-4) -> str:
     if not np.isfinite(value):
         return "\u2014"
+    if value < resolution:
+        return f"< {resolution:.2g}"
     return "< 0.0001" if value < 1e-4 else f"{value:.4f}" if value < 0.01 else f"{value:.3f}"
 
 
@@ -85,7 +87,8 @@ def check_rows(result: PairResult) -> list[dict[str, str]]:
                  "finding": f"{checks.discrete_x.distinct:,}; {checks.discrete_y.distinct:,}",
                  "flag": "discrete_x" in codes or "discrete_y" in codes})
     rows.append({"check": "Replicated data from the normal fit: r; skewness of x; of y",
-                 "finding": f"p {_p(predictive.p_r)}; {_p(predictive.p_skew_x)}; {_p(predictive.p_skew_y)}",
+                 "finding": "p " + "; ".join(_p(value, 2.0 / predictive.replicates) for value in
+                                             (predictive.p_r, predictive.p_skew_x, predictive.p_skew_y)),
                  "flag": "ppc_r" in codes or "ppc_skew" in codes})
     return rows
 

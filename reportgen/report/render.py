@@ -144,8 +144,24 @@ class ReportSandbox(ImmutableSandboxedEnvironment):
     could hold without complaint; raising names the attribute and the template line.
     """
 
+    # Powers and products are checked before they are computed: 9 ** 999999999 or 'x' * 10 ** 12 would
+    # otherwise hang the run or exhaust memory from inside a template.
+    intercepted_binops = frozenset({"**", "*"})
+    MAX_EXPONENT = 1000
+    MAX_REPEAT = 1_000_000
+
     def unsafe_undefined(self, obj: Any, attribute: str) -> Any:
         raise SecurityError(f"attribute {attribute!r} of a value of type {type(obj).__name__!r}")
+
+    def call_binop(self, context: Any, operator: str, left: Any, right: Any) -> Any:
+        if operator == "**" and isinstance(right, int) and abs(right) > self.MAX_EXPONENT:
+            raise SecurityError(f"a power with the exponent {right}, above {self.MAX_EXPONENT}")
+        if operator == "*":
+            for value, count in ((left, right), (right, left)):
+                if isinstance(value, str | list | tuple) and isinstance(count, int) and (
+                        count * max(len(value), 1) > self.MAX_REPEAT):
+                    raise SecurityError(f"a repetition to more than {self.MAX_REPEAT:,} items")
+        return super().call_binop(context, operator, left, right)
 
 
 def template_folders(user_folder: Path | None) -> list[Path]:

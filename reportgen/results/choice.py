@@ -24,9 +24,11 @@ MODEL_NAMES = {
 
 def fit_summary(result: PairResult) -> FitSummary:
     """One fit's rho for a pair, as shown beside the leading fit."""
+    nu = result.parameters.get("nu")
     return FitSummary(model=result.model, name=MODEL_NAMES[result.model], median=result.rho.median,
                       lower=result.rho.lower, upper=result.rho.upper, status=result.status, engine=result.engine,
-                      verdicts=tuple((rule.name, rule.verdict) for rule in result.rules))
+                      verdicts=tuple((rule.name, rule.verdict) for rule in result.rules),
+                      nu_median=nu.median if nu is not None else float("nan"))
 
 
 def _interval(fit: FitSummary) -> str:
@@ -45,7 +47,7 @@ def _verdict_change(leading: PairResult, other: FitSummary) -> str:
 
 def choose(
     requested: str, normal: PairResult, robust: PairResult | None, rank: PairResult | None,
-    checks: ModelChecks, *, agreement: float,
+    checks: ModelChecks, *, agreement: float, robust_failed: bool = False,
 ) -> tuple[PairResult, ModelChoice]:
     """The leading result and the choice that explains it.
 
@@ -54,9 +56,7 @@ def choose(
     """
     alternative = robust if robust is not None else rank
     agrees = alternative is None or abs(alternative.rho.median - normal.rho.median) <= agreement
-    flagged = [w.code for w in checks.warnings if w.code in ("influential_rows", "outliers", "not_normal",
-                                                             "ppc_skew", "heavy_tails")]
-    reasons = interpret.joined([CHECK_PHRASES[code] for code in flagged])
+    reasons = interpret.joined([CHECK_PHRASES[code] for code in checks.flagging_codes])
     if requested == "auto" and alternative is not None and checks.flags_normal:
         leading, other = alternative, normal
         sentence = (f"The {MODEL_NAMES[alternative.model]} fit leads because {reasons}; the normal model gives "
@@ -64,9 +64,14 @@ def choose(
     elif requested == "auto" and alternative is not None:
         leading, other = normal, alternative
         word = "agrees" if agrees else "differs"
-        sentence = (f"The normal fit leads: the checks found no outlying or influential rows and no clear "
-                    f"departure from its shape. The {MODEL_NAMES[alternative.model]} fit {word} "
-                    f"({_interval(fit_summary(alternative))}).")
+        found = ("no row that alone moves \u03c1 beyond its uncertainty, no outlying row" if checks.influence.applies
+                 else "no outlying row (leave-one-out influence needs more rows)")
+        sentence = (f"The normal fit leads: the checks found {found} and no clear departure from its shape. "
+                    f"The {MODEL_NAMES[alternative.model]} fit {word} ({_interval(fit_summary(alternative))}).")
+    elif requested in ("student_t", "auto") and alternative is None and robust_failed:
+        leading, other = normal, None
+        sentence = ("The robust (Student-t) fit failed, so the normal fit is shown; the rank model "
+                    "(model = \"rank\") needs no sampler and is the other robust choice.")
     elif requested in ("student_t", "rank") and alternative is not None:
         leading, other = alternative, normal
         basis = "the exact engine" if normal.engine == "exact" else "the sampler"
@@ -94,7 +99,8 @@ def choose(
 
 
 CHECK_PHRASES = {
-    "influential_rows": "single rows move the normal model's \u03c1 by more than the threshold",
+    "influential_rows": "a single row moves the normal model's \u03c1 by more than the threshold and its own "
+                        "uncertainty",
     "outliers": "some rows lie further out than a bivariate normal distribution allows",
     "not_normal": "Mardia's tests reject a bivariate normal shape",
     "ppc_skew": "the normal model does not reproduce the skewed margins",

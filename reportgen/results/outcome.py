@@ -111,11 +111,12 @@ def pair_outcome(spec: Spec, data: PairData, fits: dict[str, PairFit], failures:
             f"The robust fit finds heavy tails (degrees of freedom below {robust.parameters['nu'].upper:.1f} with "
             f"{document.summary.credible_mass:.0%} probability): rows far from the rest are more common than a "
             "normal distribution allows.")))
-    leading, choice = choose(requested, normal, robust, rank, checks, agreement=document.checks.influence_shift)
+    leading, choice = choose(requested, normal, robust, rank, checks, agreement=document.checks.influence_shift,
+                             robust_failed=bool(robust_failure))
     if choice.robust_differs and choice.robust is not None:
         checks = checks.with_warning(ModelWarning(ROBUST_DIFFERS, (
             f"The normal and the {choice.robust.name} fit disagree by more than "
-            f"{document.checks.influence_shift:g} in the median of \u03c1: the conclusion depends on the model.")))
+            f"{document.checks.influence_shift:g} in the median of \u03c1: the estimate depends on the model.")))
     leading_fit = fits.get(leading.model) if leading.model in ("normal", "student_t") else None
     sensitivity = _sensitivity(spec, data, leading, leading_fit)
     if sensitivity.prior_sensitive:

@@ -58,6 +58,7 @@ class FitSummary:
     status: str
     engine: str
     verdicts: tuple[tuple[str, str], ...]  # (rule name, "met"/"not met")
+    nu_median: float = float("nan")  # the Student-t fit's degrees of freedom; NaN for other models
 
 
 @dataclass(frozen=True)
@@ -299,6 +300,10 @@ def _result_from_posterior(
         lower=lower, upper=upper, grid=grid, density=density)
     probabilities = {rule.name: exact_rule_probability(posterior, rule) for rule in document.rules}
     check = exact_only_check(posterior, mass)
+    if model == "rank":  # the rank model is not the exact reference: keep only its own Bayes factor
+        nan = float("nan")
+        check = dataclasses.replace(check, exact_mean=nan, exact_sd=nan, exact_lower=nan, exact_upper=nan,
+                                    mean_gap=nan)
     # median of rho^2: P(rho^2 <= t) = cdf(sqrt t) - cdf(-sqrt t), solved by bisection
     low, high = 0.0, 1.0
     for _ in range(60):

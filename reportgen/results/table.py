@@ -26,10 +26,11 @@ def model_check_cells(pair: PairResult) -> list[str]:
     """The model, the robust fit and the checks of one pair, in MODEL_CHECK_COLUMNS order."""
     robust = pair.choice.robust if pair.choice is not None else None
     nu = pair.parameters.get("nu")
+    nu_median = nu.median if nu is not None else robust.nu_median if robust is not None else float("nan")
     checks = pair.checks
     return [
         pair.model,
-        _number(nu.median) if nu is not None else "",
+        _number(nu_median),
         *((_number(robust.median), _number(robust.lower), _number(robust.upper)) if robust else ("", "", "")),
         _number(checks.influence.max_shift) if checks else "",
         ";".join(str(row) for row in checks.influence.flagged_rows) if checks else "",
@@ -60,8 +61,9 @@ def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
             pair.status, repr(pair.p_positive), repr(pair.rope_probability), pair.rope_decision,
             interval_text, repr(pair.reference.ci_lower), repr(pair.reference.ci_upper),
             repr(pair.reference.p_value), "" if pair.seed is None else pair.seed, "; ".join(d.reasons),
-            repr(pair.crosscheck.exact_mean), repr(pair.crosscheck.exact_sd), repr(pair.crosscheck.mean_gap),
-            repr(pair.crosscheck.log_bf10), repr(pair.crosscheck.savage_dickey_bf10), pair.engine,
+            _number(pair.crosscheck.exact_mean), _number(pair.crosscheck.exact_sd),
+            _number(pair.crosscheck.mean_gap), _number(pair.crosscheck.log_bf10),
+            _number(pair.crosscheck.savage_dickey_bf10), pair.engine,
             *model_check_cells(pair), *[repr(rule.probability) for rule in pair.rules],
         ])
     return header, rows
