@@ -127,7 +127,8 @@ def cautions() -> list[dict[str, str]]:
          "text": "A few extreme points can create or hide a correlation, and a sample that covers only "
                  "part of the range of a variable understates the correlation that a wider range would "
                  "show. Each pair's page lists the rows that alone move the result and the rows further out "
-                 "than the model allows; the checks cannot see a range that was never sampled."},
+                 "than the model allows. Leaving out one row at a time can miss a group of outlying rows that "
+                 "hide each other, and no check can see a range that was never sampled."},
         {"title": "Decision thresholds are the client's choice",
          "text": "The thresholds, required probabilities and the band treated as practically zero were set "
                  "in the specification by the client or analyst, not by the method. A different choice can "
