@@ -119,10 +119,12 @@ def cautions() -> list[dict[str, str]]:
          "text": "\u03c1 measures linear association. A strong curved or threshold relationship can give a "
                  "small \u03c1, and a \u03c1 near zero does not mean the variables are unrelated. Look at "
                  "each scatter plot before reading the number."},
-        {"title": "The model assumes a bivariate normal distribution",
-         "text": "Each pair is modelled as independent draws from one bivariate normal distribution. "
-                 "Skewed data, clusters (sites, batches, periods), repeated measures on the same unit or "
-                 "serial dependence over time break that assumption and can make intervals too narrow."},
+        {"title": "The models assume independent rows from one population",
+         "text": "Each pair is modelled as independent draws from one distribution: a bivariate normal, a "
+                 "bivariate t for the robust model, and for the rank model any distribution with a monotone "
+                 "link. Clusters (sites, batches, periods), repeated measures on the same unit or serial "
+                 "dependence over time break that assumption, which no model here repairs, and can make "
+                 "intervals too narrow."},
         {"title": "Outliers and restricted ranges",
          "text": "A few extreme points can create or hide a correlation, and a sample that covers only "
                  "part of the range of a variable understates the correlation that a wider range would "

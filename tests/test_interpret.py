@@ -63,7 +63,7 @@ def test_banner_names_failed_pairs() -> None:
 
 def test_every_report_carries_the_standard_cautions() -> None:
     titles = " ".join(c["title"] for c in narrative.cautions()).lower()
-    for phrase in ("causation", "straight-line", "bivariate normal", "outliers", "client's choice",
+    for phrase in ("causation", "straight-line", "independent rows", "outliers", "client's choice",
                    "qualified review"):
         assert phrase in titles
 
