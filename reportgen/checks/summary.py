@@ -11,11 +11,13 @@ would want a robust fit to lead.
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 
+from reportgen import exact
 from reportgen.checks.influence import Influence, leave_one_out
 from reportgen.checks.ppc import PredictiveCheck, predictive_check
 from reportgen.checks.shape import Discreteness, Shape, discreteness, shape_checks
@@ -71,8 +73,6 @@ class ModelChecks:
                      if code in FLAGS_NORMAL or (code == INFLUENTIAL_ROWS and self.strong_influence))
 
     def with_warning(self, warning: ModelWarning) -> ModelChecks:
-        import dataclasses
-
         return dataclasses.replace(self, warnings=(*self.warnings, warning))
 
 
@@ -193,8 +193,6 @@ def model_checks(
 def _strong_influence(influence: Influence, x: np.ndarray, y: np.ndarray, rho_prior: tuple[float, float],
                       threshold: float) -> bool:
     """Does one row alone move the median of rho by more than the threshold and the posterior SD?"""
-    from reportgen import exact
-
     if not influence.applies or not np.isfinite(influence.max_shift):
         return bool(influence.applies and influence.flagged_rows and not np.isfinite(influence.max_shift))
     r = float(np.clip(np.corrcoef(x, y)[0, 1], -1.0 + 1e-9, 1.0 - 1e-9))
