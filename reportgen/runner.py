@@ -9,6 +9,7 @@ or interrupted run leaves earlier outputs untouched and no half-written file.
 from __future__ import annotations
 
 import csv
+import datetime as dt
 import hashlib
 import io
 import json
@@ -29,8 +30,8 @@ from reportgen import report
 from reportgen.data import PairData, Table, load_pairs, load_table
 from reportgen.errors import OutputError
 from reportgen.fit import Fitter, PairFit
-from reportgen.record import RunClock, build_record
 from reportgen.results import RunResults, pair_outcome, results_rows, run_results, sampled_models
+from reportgen.runs.record import RunClock, build_record, draws_file
 from reportgen.spec import Spec, check_engine_models
 
 LOGGER = logging.getLogger(__name__)
@@ -58,8 +59,19 @@ class RunOutcome:
         return 1 if self.results.status == "fail" else 0
 
 
+def with_report_date(spec: Spec, today: dt.date | None = None) -> Spec:
+    """The spec with its report date filled in (today when the spec leaves it out), so the resolved spec in
+    the record names the date the report carries and a rerun of the record prints the same date."""
+    meta = spec.document.report
+    if meta.date is not None:
+        return spec
+    report_meta = meta.model_copy(update={"date": today or dt.date.today()})
+    return spec.model_copy(update={"document": spec.document.model_copy(update={"report": report_meta})})
+
+
 def prepare(spec: Spec) -> Prepared:
     """Validate the data against the spec; raises our own errors, fits nothing."""
+    spec = with_report_date(spec)
     check_engine_models(spec)
     table = load_table(spec)
     pairs = load_pairs(spec, table)
@@ -135,12 +147,6 @@ def check_writable(out_dir: Path) -> None:
             raise OutputError(f"{place}: cannot write there ({exc.strerror or type(exc).__name__}), so the "
                               f"outputs of --out {out_dir} could not be saved; choose another --out folder or "
                               "fix its permissions") from None
-
-
-def safe_file_stem(key: str) -> str:
-    """A file name unique per pair: columns "a b" and "a_b" must not share a draws file."""
-    cleaned = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in key).strip("_")[:100] or "pair"
-    return f"{cleaned}-{hashlib.sha256(key.encode()).hexdigest()[:8]}"
 
 
 def fit_all(
@@ -270,6 +276,7 @@ def run(
 ) -> RunOutcome:
     clock = RunClock()
     prepared = prepare(spec)
+    spec = prepared.spec
     check_output_folder(out_dir, prepared)
     fitter = fitter or Fitter(spec.document.sampler)
     if fitter.sampler != spec.document.sampler:
@@ -311,5 +318,4 @@ def write_outputs(staging: Path, html: str, pdf: bytes, results: RunResults, rec
         draws_dir.mkdir()
         for key, pair_fits in fits.items():
             for fit in pair_fits:
-                name = safe_file_stem(key) + ("" if fit.model == "normal" else f"-{fit.model}")
-                fit.inference_data.to_netcdf(str(draws_dir / f"{name}.nc"), engine="h5netcdf")
+                fit.inference_data.to_netcdf(str(staging / draws_file(key, fit.model)), engine="h5netcdf")

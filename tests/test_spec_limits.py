@@ -60,7 +60,7 @@ def test_distinct_pair_names_give_distinct_draws_files_and_link_targets() -> Non
     file name cannot hold, or after the first 100 characters must still give different files and ids
     (also on a file system that ignores case)."""
     from reportgen.report.context import _anchor
-    from reportgen.runner import safe_file_stem
+    from reportgen.runs.record import safe_file_stem
 
     keys = ["a vs b", "A vs b", "a b vs c", "a_b vs c", "a/b vs c", "a:b vs c", "a vs b vs c", "a vs b  vs c",
             "x" * 120 + "1 vs y", "x" * 120 + "2 vs y", "é vs b", "e vs b", "a vs b-student_t"]

@@ -259,6 +259,13 @@ class Rule(_Strict):
         return (self.lower, self.upper)
 
 
+class Compare(_Strict):
+    """How runs are compared (``reportgen compare`` and ``run --previous``)."""
+
+    # a move of rho larger than this counts as material; the posterior probability of such a move is reported
+    margin: Annotated[float, Field(gt=0, le=2)] = 0.1
+
+
 class Rope(_Strict):
     lower: Annotated[float, Field(ge=-1, le=0)] = -0.1
     upper: Annotated[float, Field(ge=0, le=1)] = 0.1
@@ -308,6 +315,7 @@ class SpecDocument(_Strict):
     diagnostics: Diagnostics = Diagnostics()
     checks: Checks = Checks()
     sensitivity: Sensitivity = Sensitivity()
+    compare: Compare = Compare()
 
     @model_validator(mode="after")
     def _has_pairs(self) -> SpecDocument:

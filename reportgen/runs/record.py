@@ -60,6 +60,17 @@ def platform_fingerprint() -> dict[str, str]:
     }
 
 
+def safe_file_stem(key: str) -> str:
+    """A file name unique per pair: columns "a b" and "a_b" must not share a draws file."""
+    cleaned = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in key).strip("_")[:100] or "pair"
+    return f"{cleaned}-{hashlib.sha256(key.encode()).hexdigest()[:8]}"
+
+
+def draws_file(key: str, model: str) -> str:
+    """Where a pair's draws of one model are kept, relative to the output folder."""
+    return f"draws/{safe_file_stem(key)}{'' if model == 'normal' else '-' + model}.nc"
+
+
 def draws_sha256(fit: PairFit) -> str:
     """Hash of the draws' bytes: netCDF files carry timestamps, the arrays do not."""
     digest = hashlib.sha256()
@@ -111,6 +122,11 @@ def build_record(
             "sufficient_statistics": dict(pair.sufficient),
             "seed": fit.seed if fit else pair.seed,
             "draws_sha256": draws_sha256(fit) if fit else None,
+            "draws_file": draws_file(pair.key, "normal") if fit else None,
+            "rho": {"mean": pair.rho.mean, "sd": pair.rho.sd, "median": pair.rho.median,
+                    "lower": pair.rho.lower, "upper": pair.rho.upper},
+            "rules": [{"name": rule.name, "statement": rule.statement, "probability": rule.probability,
+                       "required": rule.required, "verdict": rule.verdict} for rule in pair.rules],
             "model": pair.model,
             "model_requested": pair.choice.requested if pair.choice is not None else pair.model,
             "model_warnings": list(pair.checks.codes) if pair.checks is not None else [],
@@ -119,6 +135,7 @@ def build_record(
             "prior_sensitive_rules": list(pair.sensitivity.changed_rules) if pair.sensitivity is not None else [],
             "robust_seed": robust.seed if robust else None,
             "robust_draws_sha256": draws_sha256(robust) if robust else None,
+            "robust_draws_file": draws_file(pair.key, "student_t") if robust else None,
             "status": d.status,
             "status_reasons": list(d.reasons),
             "rhat_max": _finite(d.rhat_max, 6),
@@ -134,6 +151,7 @@ def build_record(
         "reproducible": {
             "tool": "reportgen",
             "tool_version": __version__,
+            "report_date": document.report.date.isoformat() if document.report.date else None,
             "spec_file": spec.source_path.name,
             "spec_sha256": spec.source_sha256,
             "resolved_spec": document.model_dump(mode="json"),
@@ -159,5 +177,9 @@ def build_record(
             "wall_seconds_per_pair": {k: round(v, 3) for k, v in clock.pair_seconds.items()},
             "compile_seconds": {k: round(v, 3) for k, v in clock.compile_seconds.items()},
             "command_line": command_line,
+            # where the inputs were on this machine: verify looks there (paths differ between machines,
+            # so they stay out of the reproducible part)
+            "spec_path": str(spec.source_path.resolve()),
+            "data_path": str(spec.data_path.resolve()),
         },
     }
