@@ -2,14 +2,20 @@
 
 Exit codes: 0 every pair passed its checks; 1 the report was written but at
 least one pair failed its convergence checks; 2 the spec, data or output
-folder was refused (one line on stderr says why); 130 interrupted.
+folder was refused (one line on stderr says why); 3 an internal error (a bug;
+one line names the file holding the traceback); 130 interrupted by Ctrl-C,
+143 by SIGTERM (nothing changed, unless the line says the outputs were published).
 """
 
 from __future__ import annotations
 
+import datetime as dt
 import logging
 import os
+import signal
 import sys
+import tempfile
+import traceback
 import warnings
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -20,11 +26,13 @@ from typing import Any, TypeVar
 import click
 
 from reportgen import __version__
-from reportgen.errors import ReportgenError, SpecError
+from reportgen.errors import ReportgenError, SpecError, one_line
+from reportgen.runs.publish import Interrupted, handling_signals, resolve_out
 
 F = TypeVar("F", bound=Callable[..., Any])
 DEMO_DIR = Path(__file__).resolve().parent / "demo"
 DEMO_SPEC = DEMO_DIR / "quillmere_spec.toml"
+OUT_KEY = "reportgen.out"  # the command's output folder, in click's context: the traceback file goes beside it
 
 
 def _quiet_libraries() -> None:
@@ -38,23 +46,57 @@ def _quiet_libraries() -> None:
 
 
 def user_errors(func: F) -> F:
-    """Our errors become one line and exit 2; Ctrl-C becomes exit 130."""
+    """Our errors become one line and exit 2; Ctrl-C exits 130 and SIGTERM 143, saying whether new
+    outputs were published; any other exception is a bug: one line, exit 3, the traceback in a file."""
 
     @wraps(func)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
-        debug = click.get_current_context().find_root().params.get("debug", False)
-        try:
-            return func(*args, **kwargs)
-        except ReportgenError as exc:
-            if debug:
-                raise
-            click.echo(f"reportgen: error: {exc}", err=True)
-            sys.exit(exc.exit_code)
-        except KeyboardInterrupt:
-            click.echo("reportgen: interrupted; no output was changed", err=True)
-            sys.exit(130)
+        context = click.get_current_context()
+        debug = context.find_root().params.get("debug", False)
+        with handling_signals() as signals:
+            try:
+                return func(*args, **kwargs)
+            except ReportgenError as exc:
+                if debug:
+                    raise
+                click.echo(f"reportgen: error: {exc}", err=True)
+                sys.exit(exc.exit_code)
+            except KeyboardInterrupt as exc:
+                signum = exc.signum if isinstance(exc, Interrupted) else signal.SIGINT
+                done = (f"after the new outputs were published to {', '.join(map(str, signals.published))}"
+                        if signals.published else "no output was changed")
+                how = "SIGTERM" if signum == signal.SIGTERM else "Ctrl-C"
+                click.echo(f"reportgen: interrupted ({how}); {done}", err=True)
+                sys.exit(128 + signum)
+            except (click.exceptions.ClickException, click.exceptions.Abort, click.exceptions.Exit):
+                raise  # click's own, handled by click (Abort and Exit are RuntimeErrors)
+            except Exception as exc:
+                if debug:
+                    raise
+                where = _write_traceback(context.meta.get(OUT_KEY))
+                click.echo(f"reportgen: internal error ({one_line(type(exc).__name__ + ': ' + str(exc))[:200]}); "
+                           f"this is a bug; the traceback is in {where}", err=True)
+                sys.exit(3)
 
     return wrapper  # type: ignore[return-value]
+
+
+def _write_traceback(out: Path | None) -> str:
+    """The current exception's traceback in a new file. Beside the output folder when the command has
+    one: that is where whoever schedules the run looks, and it outlives a reboot or a private temporary
+    folder (a service manager's); the output folder itself is never touched. Else the temporary folder."""
+    stamp = dt.datetime.now().strftime("%Y%m%d-%H%M%S")
+    name = f"reportgen-error-{stamp}-{os.getpid()}.log"
+    text = traceback.format_exc()
+    places = ([out.resolve().parent] if out is not None else []) + [Path(tempfile.gettempdir())]
+    for place in places:
+        try:
+            with open(place / name, "x", encoding="utf-8") as handle:
+                handle.write(f"reportgen {__version__}, command: {' '.join(sys.argv)}\n{text}")
+            return str(place / name)
+        except OSError:
+            continue
+    return "nowhere (no writable folder; run again with --debug to see it)"
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -125,7 +167,8 @@ def _report_outcome(outcome: Any) -> None:
     results = outcome.results
     draws = ", draws/" if any(p.engine == "mcmc" for p in results.pairs) else ""
     with _stdout_may_fail():
-        click.echo(f"wrote {outcome.out_dir}/report.html, report.pdf, results.csv, record.json{draws}")
+        click.echo(f"wrote {outcome.out_dir}/report.html, report.pdf, results.csv, record.json, run.log, "
+                   f"SHA256SUMS{draws}")
         for pair in results.pairs:
             click.echo(f"  {pair.status:4}  {pair.key}: median rho {pair.rho.median:+.3f} "
                        f"[{pair.rho.lower:+.3f}, {pair.rho.upper:+.3f}], n = {pair.n}")
@@ -135,9 +178,12 @@ def _report_outcome(outcome: Any) -> None:
 
 
 def _run(spec_path: Path, out: Path, engine: str | None, model: str | None, **overrides: int | None) -> None:
-    from reportgen.runner import run
+    from reportgen.runner import run, with_report_date
 
-    spec = _load(spec_path, engine, model, **overrides)
+    # the date is pinned here so that {date} in --out and the report carry the same day
+    spec = with_report_date(_load(spec_path, engine, model, **overrides))
+    out = resolve_out(out, spec.document.report.date)
+    click.get_current_context().meta[OUT_KEY] = out
     outcome = run(spec, out, command_line=sys.argv, progress=_progress_printer())
     _report_outcome(outcome)
     sys.exit(outcome.exit_code)
@@ -165,7 +211,8 @@ def with_sampler_options(func: F) -> F:
 
 @main.command("run")
 @click.argument("spec_path", metavar="SPEC", type=click.Path(path_type=Path))
-@click.option("--out", "out", type=click.Path(path_type=Path), required=True, help="Output folder.")
+@click.option("--out", "out", type=click.Path(path_type=Path), required=True,
+              help="Output folder; {date} and {period} are filled from the report date (runs/{period}).")
 @with_sampler_options
 @user_errors
 def run_command(spec_path: Path, out: Path, engine: str | None, model: str | None,
@@ -193,7 +240,7 @@ def check_command(spec_path: Path) -> None:
 
 @main.command("demo")
 @click.option("--out", "out", type=click.Path(path_type=Path), default=Path("reportgen-demo"),
-              show_default=True, help="Output folder.")
+              show_default=True, help="Output folder; {date} and {period} are filled from the report date.")
 @with_sampler_options
 @user_errors
 def demo_command(out: Path, engine: str | None, model: str | None, **overrides: int | None) -> None:

@@ -1,9 +1,10 @@
 """Orchestration: spec -> data -> fits -> results -> record -> report -> files.
 
 Everything the run can refuse (spec, data, assets, output folder) is checked
-before the first fit. Outputs are written into a staging folder beside the
-target and moved into place only when all of them are complete, so a failed
-or interrupted run leaves earlier outputs untouched and no half-written file.
+before the first fit. The output folder is locked before the first fit, every
+output (run.log and SHA256SUMS included) is written into a staging folder, and
+the whole folder is replaced in one step at the end (``runs.publish``), so a
+failed, interrupted or killed run leaves the previous outputs as they were.
 """
 
 from __future__ import annotations
@@ -16,26 +17,28 @@ import json
 import logging
 import math
 import os
-import shutil
 import sys
 import tempfile
 import time
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
+
+import numpy as np
 
 from reportgen import report
 from reportgen.data import PairData, Table, load_pairs, load_table
 from reportgen.errors import OutputError
 from reportgen.fit import Fitter, PairFit
 from reportgen.results import RunResults, pair_outcome, results_rows, run_results, sampled_models
+from reportgen.runs import publish
 from reportgen.runs.record import RunClock, build_record, draws_file
 from reportgen.spec import Spec, check_engine_models
 
 LOGGER = logging.getLogger(__name__)
-OUTPUT_FILES = ("report.html", "report.pdf", "results.csv", "record.json")
+OUTPUT_FILES = ("report.html", "report.pdf", "results.csv", "record.json", publish.RUN_LOG, publish.SUMS)
 DRAWS_FOLDER = "draws"
 
 ProgressCallback = Callable[[str, int, int], None]
@@ -57,6 +60,22 @@ class RunOutcome:
     @property
     def exit_code(self) -> int:
         return 1 if self.results.status == "fail" else 0
+
+
+class RunLog:
+    """run.log: one JSON object a line (time, level, pair, event, and the event's own keys), written as
+    the run goes, so a run that stops early still says how far it got while it is being staged."""
+
+    def __init__(self, path: Path | None) -> None:
+        self.path = path
+
+    def event(self, event: str, *, pair: str | None = None, level: str = "info", **details: object) -> None:
+        if self.path is None:
+            return
+        line = {"time": dt.datetime.now(dt.UTC).isoformat(timespec="milliseconds"), "level": level,
+                "pair": pair, "event": event, **details}
+        with self.path.open("a", encoding="utf-8") as handle:
+            handle.write(json.dumps(line, ensure_ascii=False, default=str) + "\n")
 
 
 def with_report_date(spec: Spec, today: dt.date | None = None) -> Spec:
@@ -104,6 +123,7 @@ def input_locations(spec: Spec) -> dict[Path, str]:
 
 def check_output_folder(out_dir: Path, prepared: Prepared) -> None:
     """Refuse, before any fit, an output folder the run would damage (an input in it) or cannot write."""
+    publish.refuse_dangling_links(out_dir)  # before any probe, so nothing is created where it points
     inputs = input_locations(prepared.spec)
     if out_dir.exists() and not out_dir.is_dir():
         raise OutputError(f"{out_dir}: --out must be a folder, and this is a file")
@@ -130,9 +150,12 @@ def check_output_folder(out_dir: Path, prepared: Prepared) -> None:
 
 def check_writable(out_dir: Path) -> None:
     """Create and remove a probe file wherever the run will write, so a read-only place is refused now:
-    beside ``out_dir`` (staging; the nearest existing folder up), in it, and in a real draws/ (renamed)."""
+    beside ``out_dir`` (staging and the lock; the nearest existing folder up) unless it is a mount point,
+    which is staged inside, in it, and in a real draws/."""
     folder = _resolved(out_dir)
-    places = [next((p for p in folder.parents if p.is_dir()), Path(folder.anchor))]
+    places = []
+    if not (folder.is_dir() and publish.is_mount_point(folder)):
+        places.append(next((p for p in folder.parents if p.is_dir()), Path(folder.anchor)))
     if folder.is_dir():
         places.append(folder)
         draws = folder / DRAWS_FOLDER
@@ -154,31 +177,64 @@ def fit_all(
     fitter: Fitter,
     clock: RunClock,
     progress: ProgressCallback | None = None,
+    log: RunLog | None = None,
 ) -> tuple[RunResults, dict[str, tuple[PairFit, ...]]]:
-    """Fit every pair with the models it needs; the second value holds each pair's fits by pair key."""
+    """Fit every pair with the models it needs; the second value holds each pair's fits by pair key.
+
+    Ctrl-C or SIGTERM during a fit is not seen as an exception (the sampler catches it and returns
+    NaN-padded draws), so the recorded signal is checked after each fit and stops the run.
+    """
+    log = log or RunLog(None)
     spec = prepared.spec
     fits: dict[str, tuple[PairFit, ...]] = {}
     results = []
     total = len(prepared.pairs)
     for index, pair in enumerate(prepared.pairs):
+        key = pair.pair.key
         if progress:
-            progress(pair.pair.key, index, total)
+            progress(key, index, total)
         started = time.perf_counter()
         done: dict[str, PairFit] = {}
         failures: dict[str, str] = {}
         for model in sampled_models(spec.document.engine, pair.pair.model, pair.stats.n,
                                     spec.document.checks.student_t_max_rows):
-            try:
-                done[model] = fitter.fit(pair, spec.document.sampler.seed, model)
-            except Exception as exc:  # one pair's sampler crashing must not sink the other pairs
-                LOGGER.warning("sampler (%s model) failed for %s: %s", model, pair.pair.key, exc)
-                failures[model] = _one_line(exc)
+            fit_started = time.perf_counter()
+            # the sampler's warnings go to run.log (the filters in force still decide which are kept)
+            with warnings.catch_warnings(record=True) as caught:
+                try:
+                    fit = fitter.fit(pair, spec.document.sampler.seed, model)
+                except Exception as exc:  # one pair's sampler crashing must not sink the other pairs
+                    failures[model] = _one_line(exc)
+                else:
+                    failures.update({model: reason} if (reason := _not_finite(fit)) else {})
+                    done.update({} if reason else {model: fit})
+            publish.raise_if_interrupted()
+            for warning in caught:
+                log.event("sampler warning", pair=key, level="warning", model=model,
+                          message=" ".join(str(warning.message).split())[:300])
+            if model in failures:
+                LOGGER.warning("sampler (%s model) failed for %s: %s", model, key, failures[model])
+            log.event("fit", pair=key, level="warning" if model in failures else "info", model=model,
+                      status="failed" if model in failures else "sampled", reason=failures.get(model),
+                      seconds=round(time.perf_counter() - fit_started, 3))
         if done:
-            fits[pair.pair.key] = tuple(done.values())
-        results.append(pair_outcome(spec, pair, done, failures))
-        clock.pair_seconds[pair.pair.key] = time.perf_counter() - started
+            fits[key] = tuple(done.values())
+        outcome = pair_outcome(spec, pair, done, failures)
+        results.append(outcome)
+        clock.pair_seconds[key] = time.perf_counter() - started
+        log.event("pair done", pair=key, status=outcome.status, engine=outcome.engine, model=outcome.model,
+                  seconds=round(clock.pair_seconds[key], 3))
     clock.compile_seconds.update(fitter.compile_seconds)
     return run_results(spec, tuple(results)), fits
+
+
+def _not_finite(fit: PairFit) -> str | None:
+    """Why draws holding NaN or inf cannot be summarised (a sampler that stopped early pads with NaN)."""
+    bad = [name for name, values in fit.draws.items() if not np.isfinite(values).all()]
+    if not bad:
+        return None
+    return (f"the sampler returned draws that are not finite numbers (NaN or inf) for {', '.join(bad)}; "
+            "the sampler stopped early or diverged badly")
 
 
 def _one_line(exc: BaseException) -> str:
@@ -225,47 +281,6 @@ def results_csv(results: RunResults) -> str:
     return buffer.getvalue()
 
 
-@contextmanager
-def staging_folder(out_dir: Path) -> Iterator[Path]:
-    """A scratch folder next to ``out_dir``; removed whatever happens."""
-    parent = out_dir.resolve().parent
-    try:
-        parent.mkdir(parents=True, exist_ok=True)
-        staging = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.staging-", dir=parent))
-    except OSError as exc:
-        raise OutputError(f"{out_dir}: cannot write to the output folder's parent ({exc.strerror})") from None
-    try:
-        yield staging
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
-
-
-def publish(staging: Path, out_dir: Path) -> None:
-    """Move the finished files into ``out_dir``, each by an atomic rename.
-
-    Every file is complete before the first rename, so a reader never sees a half-written
-    file; a previous run's draws/ that this run does not replace (exact engine) is removed
-    so the folder never mixes two runs' draws.
-    """
-    try:
-        out_dir.mkdir(parents=True, exist_ok=True)
-        draws_target = out_dir / DRAWS_FOLDER
-        retired = None
-        if draws_target.exists() or draws_target.is_symlink():
-            # a fresh name: a fixed one (".draws.old") would delete whatever the user keeps under it
-            retired = Path(tempfile.mkdtemp(prefix=f".{DRAWS_FOLDER}.old-", dir=out_dir))
-            os.replace(draws_target, retired / DRAWS_FOLDER)
-        if (staging / DRAWS_FOLDER).exists():
-            os.replace(staging / DRAWS_FOLDER, draws_target)
-        if retired is not None:
-            shutil.rmtree(retired, ignore_errors=True)
-        for name in OUTPUT_FILES:
-            os.replace(staging / name, out_dir / name)
-    except OSError as exc:
-        raise OutputError(f"{out_dir}: could not write the outputs ({exc.strerror or exc}); "
-                          "check the folder's permissions and free space") from None
-
-
 def run(
     spec: Spec,
     out_dir: Path,
@@ -274,31 +289,45 @@ def run(
     progress: ProgressCallback | None = None,
     fitter: Fitter | None = None,
 ) -> RunOutcome:
+    """Fit, render and publish into ``out_dir`` (``{date}`` and ``{period}`` filled from the report date).
+    The folder is locked from before the first fit until its new contents are published."""
     clock = RunClock()
     prepared = prepare(spec)
+    loaded = dt.datetime.now(dt.UTC)
     spec = prepared.spec
+    out_dir = publish.resolve_out(out_dir, spec.document.report.date or dt.date.today())
     check_output_folder(out_dir, prepared)
     fitter = fitter or Fitter(spec.document.sampler)
     if fitter.sampler != spec.document.sampler:
         fitter = Fitter(spec.document.sampler, cores=fitter.cores)
-    results, fits = fit_all(prepared, fitter, clock, progress)
-    record = build_record(spec, prepared.table, results, fits, clock,
-                          command_line if command_line is not None else sys.argv, fitter.cores)
-    pair_data = {p.pair.key: p for p in prepared.pairs}
-    if progress:
-        progress("rendering the report", len(prepared.pairs), len(prepared.pairs))
-    context = report.build_context(spec, results, pair_data, record)
-    user_templates = (spec.resolve_input(spec.document.report.templates, "report.templates")
-                      if spec.document.report.templates else None)
-    html = report.render_html(context, user_templates)
-    pdf, refused = report.render_pdf(html, context["meta"]["date"])
-    with staging_folder(out_dir) as staging:
+    with publish.publishing(out_dir, frozenset(OUTPUT_FILES)) as publication:
+        staging = publication.staging
+        log = RunLog(staging / publish.RUN_LOG)
+        log.event("start", spec=str(spec.source_path), out=str(out_dir), engine=spec.document.engine,
+                  seed=spec.document.sampler.seed, pid=os.getpid())
+        log.event("data loaded", data=str(spec.data_path), rows=prepared.table.n_rows,
+                  pairs=len(prepared.pairs), at=loaded.isoformat(timespec="milliseconds"))
+        results, fits = fit_all(prepared, fitter, clock, progress, log)
+        record = build_record(spec, prepared.table, results, fits, clock,
+                              command_line if command_line is not None else sys.argv, fitter.cores)
+        pair_data = {p.pair.key: p for p in prepared.pairs}
+        if progress:
+            progress("rendering the report", len(prepared.pairs), len(prepared.pairs))
+        log.event("rendering", status=results.status)
+        context = report.build_context(spec, results, pair_data, record)
+        user_templates = (spec.resolve_input(spec.document.report.templates, "report.templates")
+                          if spec.document.report.templates else None)
+        html = report.render_html(context, user_templates)
+        pdf, refused = report.render_pdf(html, context["meta"]["date"])
+        for url in refused:
+            log.event("refused url", level="warning", url=url)
         try:
             write_outputs(staging, html, pdf, results, record, fits)
         except OSError as exc:
             raise OutputError(f"{out_dir}: could not write the outputs ({exc.strerror or exc}); "
                               "check free space") from None
-        publish(staging, out_dir)
+        log.event("outputs written", files=sorted(p.name for p in staging.iterdir()))
+        publication.commit()
     if progress:
         progress("done", len(prepared.pairs), len(prepared.pairs))
     return RunOutcome(out_dir=out_dir, results=results, refused_urls=refused)

@@ -127,18 +127,20 @@ def test_inputs_inside_the_output_folder_are_refused(tmp_path: Path, place: obje
     assert kept.read_bytes() == before
 
 
-def test_a_folder_named_like_the_old_draws_survives(tmp_path: Path) -> None:
-    """The previous draws/ is moved aside under a fresh name, never a fixed one that may hold user files."""
+def test_a_folder_of_the_users_inside_out_is_refused_and_kept(tmp_path: Path) -> None:
+    """The run replaces the whole output folder, so a file reportgen did not write (here in a folder named
+    like a leftover of ours) is refused by name, before any fit, and left exactly as it was."""
     spec = project(tmp_path)
     out = tmp_path / "out"
     (out / "draws").mkdir(parents=True)
     (out / "draws" / "old-pair.nc").write_bytes(b"last run")
     (out / ".draws.old").mkdir()
     (out / ".draws.old" / "keep.txt").write_text("mine", encoding="utf-8")
-    _exact_run(spec, out)
+    result = invoke("run", spec, "--out", out, "--engine", "exact")
+    assert result.exit_code == 2, result.output
+    assert "keep.txt" in result.output
     assert (out / ".draws.old" / "keep.txt").read_text(encoding="utf-8") == "mine"
-    assert not (out / "draws").exists()  # the exact engine writes no draws: the old ones go
-    assert sorted(p.name for p in out.iterdir() if p.name.startswith(".")) == [".draws.old"]
+    assert (out / "draws" / "old-pair.nc").read_bytes() == b"last run"
 
 
 # ------------------------------------------------------------------------ 8 and 15: init
