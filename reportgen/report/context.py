@@ -9,16 +9,20 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import json
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from reportgen import figures, interpret, narrative
 from reportgen.data import PairData
+from reportgen.report.changes import long_date, since_previous_context
 from reportgen.report.checks import checks_context, highlighted_rows, run_checks_context
 from reportgen.report.render import logo_data_uri, svg_data_uri
 from reportgen.results import PairResult, RunResults
 from reportgen.spec import Spec
+
+if TYPE_CHECKING:
+    from reportgen.runs.compare import Comparison
 
 PARAMETER_TITLES = {
     "mu_x": ("\u03bc\u2081", "mean of {x}"),
@@ -194,16 +198,33 @@ def _anchor(key: str) -> str:
     return f"pair-{safe}-{hashlib.sha256(key.encode()).hexdigest()[:8]}"
 
 
+def document_meta(spec: Spec) -> dict[str, str]:
+    """The title block of every document made from this spec: title, client, author, date, notice, logo."""
+    meta = spec.document.report
+    report_date = meta.date or dt.date.today()
+    return {
+        "title": meta.title,
+        "subtitle": meta.subtitle,
+        "client": meta.client,
+        "author": meta.author,
+        "date": report_date.isoformat(),
+        "date_long": long_date(report_date),
+        "confidentiality": meta.confidentiality,
+        "logo": logo_data_uri(spec),
+    }
+
+
 def build_context(
     spec: Spec,
     results: RunResults,
     pair_data: dict[str, PairData],
     record: dict[str, Any],
+    comparison: Comparison | None = None,
 ) -> dict[str, Any]:
+    """The run report's context; with ``comparison`` (against the previous run) it also holds
+    ``since_previous``: the flips for page one and the section after the summary (None without)."""
     document = spec.document
-    meta = document.report
     mass = document.summary.credible_mass
-    report_date = meta.date or dt.date.today()
     pairs = []
     for result in results.pairs:
         figs = pair_figures(result, pair_data[result.key], spec)
@@ -223,17 +244,9 @@ def build_context(
     priors = document.priors
     failed = results.failed
     warned = [p for p in results.pairs if p.status == "warn"]
+    titles = {result.key: (result.title, p["anchor"]) for result, p in zip(results.pairs, pairs, strict=True)}
     return {
-        "meta": {
-            "title": meta.title,
-            "subtitle": meta.subtitle,
-            "client": meta.client,
-            "author": meta.author,
-            "date": report_date.isoformat(),
-            "date_long": f"{report_date.day} {report_date.strftime('%B %Y')}",
-            "confidentiality": meta.confidentiality,
-            "logo": logo_data_uri(spec),
-        },
+        "meta": document_meta(spec),
         "banner": narrative.status_banner(len(results.pairs), [p.title for p in failed],
                                           [p.title for p in warned]),
         "status": results.status,
@@ -273,6 +286,7 @@ def build_context(
         "versions": record["reproducible"]["versions"],
         "spec_text": spec.source_text,
         "record_json": json.dumps(record["reproducible"], indent=2, ensure_ascii=False),
+        "since_previous": None if comparison is None else since_previous_context(comparison, titles),
     }
 
 

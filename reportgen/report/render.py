@@ -369,9 +369,18 @@ class RenderedReport:
 
 def render_html(context: dict[str, Any], user_templates: Path | None = None) -> str:
     """The report's HTML; an error a user template causes is the user's, reported in one line."""
+    return render_document("report.html.j2", context, user_templates)
+
+
+def render_document(template: str, context: dict[str, Any], user_templates: Path | None = None) -> str:
+    """Any of the shipped documents (run, change or history report) as HTML, from its template's name.
+
+    The same sandbox, loader and error wording as the run report, so a user's template folder can
+    restyle every document and a fault in one of its templates is reported in one line.
+    """
     env = environment(user_templates)
     try:
-        return env.get_template("report.html.j2").render(**context)
+        return env.get_template(template).render(**context)
     except Exception as exc:
         if user_templates is None or not _is_users(exc, user_templates):
             raise  # an error in the shipped templates alone is a bug in reportgen
