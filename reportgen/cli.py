@@ -1,4 +1,4 @@
-"""Command line: ``reportgen init | check | run | demo``.
+"""Command line: ``reportgen init | check | run | verify | compare | history | demo``.
 
 Exit codes: 0 every pair passed its checks; 1 the report was written but at
 least one pair failed its convergence checks; 2 the spec, data or output
@@ -32,6 +32,10 @@ from reportgen.runs.publish import Interrupted, handling_signals, resolve_out
 F = TypeVar("F", bound=Callable[..., Any])
 DEMO_DIR = Path(__file__).resolve().parent / "demo"
 DEMO_SPEC = DEMO_DIR / "quillmere_spec.toml"
+# the demo's monthly reruns, oldest first: each spec differs from the next in its date and data file only
+DEMO_MONTHS = ((DEMO_DIR / "quillmere_spec_2026-09.toml", "2026-09"),
+               (DEMO_DIR / "quillmere_spec_2026-10.toml", "2026-10"),
+               (DEMO_SPEC, "2026-11"))
 OUT_KEY = "reportgen.out"  # the command's output folder, in click's context: the traceback file goes beside it
 
 
@@ -177,16 +181,23 @@ def _report_outcome(outcome: Any) -> None:
         click.echo(f"reportgen: {len(results.failed)} pair(s) failed the convergence checks: {names}", err=True)
 
 
-def _run(spec_path: Path, out: Path, engine: str | None, model: str | None, **overrides: int | None) -> None:
+def _run_one(spec_path: Path, out: Path, engine: str | None, model: str | None, previous: Path | None = None,
+             fitter: Any = None, **overrides: int | None) -> Any:
     from reportgen.runner import run, with_report_date
 
     # the date is pinned here so that {date} in --out and the report carry the same day
     spec = with_report_date(_load(spec_path, engine, model, **overrides))
     out = resolve_out(out, spec.document.report.date)
     click.get_current_context().meta[OUT_KEY] = out
-    outcome = run(spec, out, command_line=sys.argv, progress=_progress_printer())
+    outcome = run(spec, out, command_line=sys.argv, progress=_progress_printer(), previous=previous,
+                  fitter=fitter)
     _report_outcome(outcome)
-    sys.exit(outcome.exit_code)
+    return outcome
+
+
+def _run(spec_path: Path, out: Path, engine: str | None, model: str | None, previous: Path | None = None,
+         **overrides: int | None) -> None:
+    sys.exit(_run_one(spec_path, out, engine, model, previous, **overrides).exit_code)
 
 
 sampler_options = [
@@ -213,12 +224,14 @@ def with_sampler_options(func: F) -> F:
 @click.argument("spec_path", metavar="SPEC", type=click.Path(path_type=Path))
 @click.option("--out", "out", type=click.Path(path_type=Path), required=True,
               help="Output folder; {date} and {period} are filled from the report date (runs/{period}).")
+@click.option("--previous", "previous", type=click.Path(path_type=Path), default=None,
+              help="An earlier run's output folder: the report gains a section on what changed since it.")
 @with_sampler_options
 @user_errors
-def run_command(spec_path: Path, out: Path, engine: str | None, model: str | None,
+def run_command(spec_path: Path, out: Path, engine: str | None, model: str | None, previous: Path | None,
                 **overrides: int | None) -> None:
     """Fit every pair of SPEC and write the report, results and record to --out."""
-    _run(spec_path, out, engine, model, **overrides)
+    _run(spec_path, out, engine, model, previous, **overrides)
 
 
 @main.command("check")
@@ -244,8 +257,89 @@ def check_command(spec_path: Path) -> None:
 @with_sampler_options
 @user_errors
 def demo_command(out: Path, engine: str | None, model: str | None, **overrides: int | None) -> None:
-    """Run the bundled demo (an invented river-monitoring survey)."""
-    _run(DEMO_SPEC, out, engine, model, **overrides)
+    """Run the bundled demo (an invented river-monitoring survey) as three monthly reruns, each compared
+    with the month before, then a change report of the last two months and a history of all three."""
+    from reportgen.fit import Fitter
+    from reportgen.runner import with_report_date
+    from reportgen.tracking import compare, history
+
+    latest = with_report_date(_load(DEMO_SPEC, engine, model, **overrides))
+    out = resolve_out(out, latest.document.report.date)  # one parent folder, named by the latest month
+    folders: list[Path] = []
+    fitter = Fitter(latest.document.sampler)  # compiled once for the three runs
+    worst = 0
+    for spec_path, period in DEMO_MONTHS:
+        folder = out / period
+        outcome = _run_one(spec_path, folder, engine, model, folders[-1] if folders else None, fitter,
+                           **overrides)
+        folders.append(folder)
+        worst = max(worst, outcome.exit_code)
+    changed = compare(folders[-2], folders[-1], out / "changes")
+    followed = history(folders, out / "history")
+    with _stdout_may_fail():
+        click.echo(f"wrote {changed.out_dir}/changes.html, changes.pdf, changes.csv "
+                   f"({len(changed.comparison.flipped)} pair(s) with a flipped verdict)")
+        click.echo(f"wrote {followed.out_dir}/history.html, history.pdf, history.csv")
+    sys.exit(worst)
+
+
+@main.command("verify")
+@click.argument("run_dir", metavar="RUN_DIR", type=click.Path(path_type=Path))
+@click.option("--data", "data", type=click.Path(path_type=Path), default=None,
+              help="The data file, when it is no longer where the run read it.")
+@click.option("--out", "out", type=click.Path(path_type=Path), default=None,
+              help="Keep the rerun in this folder, with verification.json.")
+@user_errors
+def verify_command(run_dir: Path, data: Path | None, out: Path | None) -> None:
+    """Re-run a past run from its record and say whether it reproduces (exit 0) or not (exit 1)."""
+    from reportgen.audit import verify_run
+    from reportgen.runs.verify import summary_lines
+
+    if out is not None:
+        click.get_current_context().meta[OUT_KEY] = out
+    verification = verify_run(run_dir, data, out, command_line=sys.argv)
+    with _stdout_may_fail():
+        for line in summary_lines(verification):
+            click.echo(line)
+    sys.exit(verification.exit_code)
+
+
+@main.command("compare")
+@click.argument("old_dir", metavar="OLD_DIR", type=click.Path(path_type=Path))
+@click.argument("new_dir", metavar="NEW_DIR", type=click.Path(path_type=Path))
+@click.option("--out", "out", type=click.Path(path_type=Path), required=True,
+              help="Folder for changes.html, changes.pdf and changes.csv.")
+@user_errors
+def compare_command(old_dir: Path, new_dir: Path, out: Path) -> None:
+    """Say what changed between two runs' output folders: data, spec, versions, rho and verdicts."""
+    from reportgen.runs.compare import summary_lines
+    from reportgen.tracking import compare
+
+    click.get_current_context().meta[OUT_KEY] = out
+    outcome = compare(old_dir, new_dir, out)
+    with _stdout_may_fail():
+        click.echo(f"wrote {outcome.out_dir}/changes.html, changes.pdf, changes.csv")
+        for line in summary_lines(outcome.comparison):
+            click.echo(f"  {line}")
+
+
+@main.command("history")
+@click.argument("run_dirs", metavar="RUN_DIR...", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option("--out", "out", type=click.Path(path_type=Path), required=True,
+              help="Folder for history.html, history.pdf and history.csv.")
+@user_errors
+def history_command(run_dirs: tuple[Path, ...], out: Path) -> None:
+    """Follow rho across runs: give run folders, or one folder whose subfolders are runs."""
+    from reportgen.tracking import history
+
+    click.get_current_context().meta[OUT_KEY] = out
+    outcome = history(list(run_dirs), out)
+    with _stdout_may_fail():
+        click.echo(f"wrote {outcome.out_dir}/history.html, history.pdf, history.csv "
+                   f"({len(outcome.history.labels)} runs, {len(outcome.history.pairs)} pairs)")
+        for pair in outcome.history.pairs:
+            if pair.drift:
+                click.echo(f"  drift: {pair.key}: {pair.sentence}")
 
 
 @main.command("init")

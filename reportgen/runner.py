@@ -34,11 +34,14 @@ from reportgen.errors import OutputError
 from reportgen.fit import Fitter, PairFit
 from reportgen.results import RunResults, pair_outcome, results_rows, run_results, sampled_models
 from reportgen.runs import publish
+from reportgen.runs.compare import Comparison, changes_rows, compare_runs
 from reportgen.runs.record import RunClock, build_record, draws_file
+from reportgen.runs.snapshot import RunSnapshot, load_run
 from reportgen.spec import Spec, check_engine_models
 
 LOGGER = logging.getLogger(__name__)
 OUTPUT_FILES = ("report.html", "report.pdf", "results.csv", "record.json", publish.RUN_LOG, publish.SUMS)
+PREVIOUS_OUTPUTS = ("changes.csv",)  # written only by a run with --previous
 DRAWS_FOLDER = "draws"
 
 ProgressCallback = Callable[[str, int, int], None]
@@ -281,6 +284,21 @@ def results_csv(results: RunResults) -> str:
     return buffer.getvalue()
 
 
+def table_csv(header: list[str], rows: list[list[object]]) -> str:
+    """A table of our own as CSV, safe in a spreadsheet: every text cell that could start a formula gets
+    a leading apostrophe; numbers are written by us and left as they are."""
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow([neutralised(name) for name in header])
+    writer.writerows([neutralised(cell) if isinstance(cell, str) else cell for cell in row] for row in rows)
+    return buffer.getvalue()
+
+
+def changes_csv(comparison: Comparison) -> str:
+    header, rows = changes_rows(comparison)
+    return table_csv(header, rows)
+
+
 def run(
     spec: Spec,
     out_dir: Path,
@@ -288,11 +306,14 @@ def run(
     command_line: list[str] | None = None,
     progress: ProgressCallback | None = None,
     fitter: Fitter | None = None,
+    previous: Path | None = None,
 ) -> RunOutcome:
     """Fit, render and publish into ``out_dir`` (``{date}`` and ``{period}`` filled from the report date).
-    The folder is locked from before the first fit until its new contents are published."""
+    The folder is locked from before the first fit until its new contents are published. With
+    ``previous`` (an earlier run's output folder), the report gains a section on what changed since it."""
     clock = RunClock()
     prepared = prepare(spec)
+    earlier = load_run(previous) if previous is not None else None  # a bad folder is refused before any fit
     loaded = dt.datetime.now(dt.UTC)
     spec = prepared.spec
     out_dir = publish.resolve_out(out_dir, spec.document.report.date or dt.date.today())
@@ -300,7 +321,7 @@ def run(
     fitter = fitter or Fitter(spec.document.sampler)
     if fitter.sampler != spec.document.sampler:
         fitter = Fitter(spec.document.sampler, cores=fitter.cores)
-    with publish.publishing(out_dir, frozenset(OUTPUT_FILES)) as publication:
+    with publish.publishing(out_dir, frozenset(OUTPUT_FILES + PREVIOUS_OUTPUTS)) as publication:
         staging = publication.staging
         log = RunLog(staging / publish.RUN_LOG)
         log.event("start", spec=str(spec.source_path), out=str(out_dir), engine=spec.document.engine,
@@ -310,11 +331,19 @@ def run(
         results, fits = fit_all(prepared, fitter, clock, progress, log)
         record = build_record(spec, prepared.table, results, fits, clock,
                               command_line if command_line is not None else sys.argv, fitter.cores)
+        write_draws(staging, fits)
+        comparison = None
+        if earlier is not None:
+            record["reproducible"]["previous_run"] = previous_run_entry(earlier)
+            record["run"]["previous_path"] = str(earlier.folder.resolve())
+            comparison = compare_runs(earlier, RunSnapshot(folder=staging, record=record),
+                                      spec.document.compare.margin, spec.data_path)
+            log.event("compared", previous=str(earlier.folder), flipped=len(comparison.flipped))
         pair_data = {p.pair.key: p for p in prepared.pairs}
         if progress:
             progress("rendering the report", len(prepared.pairs), len(prepared.pairs))
         log.event("rendering", status=results.status)
-        context = report.build_context(spec, results, pair_data, record)
+        context = report.build_context(spec, results, pair_data, record, comparison)
         user_templates = (spec.resolve_input(spec.document.report.templates, "report.templates")
                           if spec.document.report.templates else None)
         html = report.render_html(context, user_templates)
@@ -322,7 +351,7 @@ def run(
         for url in refused:
             log.event("refused url", level="warning", url=url)
         try:
-            write_outputs(staging, html, pdf, results, record, fits)
+            write_outputs(staging, html, pdf, results, record, comparison)
         except OSError as exc:
             raise OutputError(f"{out_dir}: could not write the outputs ({exc.strerror or exc}); "
                               "check free space") from None
@@ -333,18 +362,30 @@ def run(
     return RunOutcome(out_dir=out_dir, results=results, refused_urls=refused)
 
 
+def previous_run_entry(earlier: RunSnapshot) -> dict[str, Any]:
+    """What the record says of the run compared against: enough to find it and tell if it changed."""
+    return {"label": earlier.label, "report_date": earlier.report_date.isoformat(),
+            "record_sha256": hashlib.sha256((earlier.folder / "record.json").read_bytes()).hexdigest(),
+            "data_sha256": earlier.reproducible.get("data_sha256")}
+
+
+def write_draws(staging: Path, fits: dict[str, tuple[PairFit, ...]]) -> None:
+    if not fits:
+        return
+    (staging / DRAWS_FOLDER).mkdir()
+    for key, pair_fits in fits.items():
+        for fit in pair_fits:
+            fit.inference_data.to_netcdf(str(staging / draws_file(key, fit.model)), engine="h5netcdf")
+
+
 def write_outputs(staging: Path, html: str, pdf: bytes, results: RunResults, record: dict[str, Any],
-                  fits: dict[str, tuple[PairFit, ...]]) -> None:
-    """Write every output into ``staging``; record.json also gets the SHA-256 of the others."""
+                  comparison: Comparison | None = None) -> None:
+    """Write every output but the draws into ``staging``; record.json also gets the SHA-256 of the others."""
     csv_text = results_csv(results)
     files = {"report.html": html.encode("utf-8"), "report.pdf": pdf, "results.csv": csv_text.encode("utf-8")}
+    if comparison is not None:
+        files["changes.csv"] = changes_csv(comparison).encode("utf-8")
     record["reproducible"]["outputs_sha256"] = {name: hashlib.sha256(data).hexdigest() for name, data in files.items()}
     for name, data in files.items():
         (staging / name).write_bytes(data)
     (staging / "record.json").write_text(json.dumps(record, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
-    if fits:
-        draws_dir = staging / DRAWS_FOLDER
-        draws_dir.mkdir()
-        for key, pair_fits in fits.items():
-            for fit in pair_fits:
-                fit.inference_data.to_netcdf(str(staging / draws_file(key, fit.model)), engine="h5netcdf")

@@ -150,12 +150,21 @@ def test_check_validates_without_fitting(project: Path) -> None:
 
 
 def test_failed_diagnostics_exit_1_and_say_so_on_page_one(tmp_path: Path) -> None:
-    """Too few draws for the demo's ESS >= 400 threshold: the report is written and flags it."""
+    """Too few draws for the demo's ESS >= 400 threshold: the reports are written and flag it. The demo is
+    three monthly runs, each compared with the month before, then a change report and a history."""
     result = CliRunner().invoke(main, ["demo", "--out", str(tmp_path / "demo"), "--draws", "60",
                                        "--tune", "60", "--chains", "2"])
     assert result.exit_code == 1, result.output
-    first_page = PdfReader(str(tmp_path / "demo" / "report.pdf")).pages[0].extract_text()
+    latest = tmp_path / "demo" / "2026-11"
+    first_page = PdfReader(str(latest / "report.pdf")).pages[0].extract_text()
     assert "did not pass the convergence" in first_page
+    assert "Since the previous run" in first_page
+    assert (latest / "changes.csv").is_file() and not (tmp_path / "demo" / "2026-09" / "changes.csv").exists()
+    for name in ("changes/changes.pdf", "changes/changes.csv", "history/history.pdf", "history/history.csv"):
+        assert (tmp_path / "demo" / name).is_file(), name
+    with (tmp_path / "demo" / "history" / "history.csv").open(encoding="utf-8", newline="") as handle:
+        dates = {row["date"] for row in csv.DictReader(handle)}
+    assert dates == {"2026-09-30", "2026-10-31", "2026-11-30"}
 
 
 def test_init_writes_a_spec_that_check_accepts(project: Path) -> None:

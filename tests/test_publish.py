@@ -345,7 +345,8 @@ def test_run_and_demo_fill_the_placeholders(tmp_path: Path, monkeypatch: pytest.
 
     monkeypatch.setattr("reportgen.runner.run", run)
     invoke("demo", "--out", tmp_path / "demo-{date}")
-    assert len(seen) == 1 and seen[0].name.startswith("demo-") and "{" not in str(seen[0])
+    # the demo's monthly runs go into one parent folder, named from the latest month's report date
+    assert len(seen) == 1 and seen[0].parent.name == "demo-2026-11-30" and "{" not in str(seen[0])
 
 
 # ------------------------------------------------------------------------------------- mount points

@@ -186,7 +186,26 @@ def comparison_block(comparison: Comparison, titles: Mapping[str, tuple[str, str
         "basis_sentence": comparison.basis_sentence,
         "method_sentence": comparison.method_sentence,
         "settings_sentence": settings_sentence(comparison),
+        **difference_words(comparison),
     }
+
+
+def difference_words(comparison: Comparison) -> dict[str, str]:
+    """The change column's heading and note, which depend on what was compared: when the new data extend
+    the old, the two runs share rows, so the added rows are set against the earlier ones instead."""
+    bases = {p.basis for p in comparison.pairs}
+    if bases == {"added_rows"}:
+        return {"difference_heading": "Added rows against earlier",
+                "difference_note": "Change: \u03c1 of the added rows alone minus \u03c1 of the earlier rows, each "
+                                   "from its own posterior (the two runs share the earlier rows, so their reported "
+                                   "\u03c1 are not set against each other). P(\u03c1 rose): posterior probability "
+                                   "that \u03c1 is higher in the added rows than in the earlier ones"}
+    note = ("Change: the latest run's \u03c1 minus the earlier run's, from the two posteriors taken as independent "
+            "samples. P(\u03c1 rose): posterior probability that \u03c1 is higher now")
+    if "added_rows" in bases:
+        note += ("; for the pairs whose sentence says so, the added rows alone are set against the earlier rows "
+                 "instead")
+    return {"difference_heading": "Change in \u03c1", "difference_note": note}
 
 
 def settings_sentence(comparison: Comparison) -> str:

@@ -4,7 +4,10 @@ The record has two parts. ``reproducible`` holds only what the inputs and the
 software determine (hashes, resolved spec, seeds, versions, platform,
 diagnostics), so it is identical when a run is repeated and is what the
 report's appendix shows. ``run`` holds what changes every time (clock times,
-wall times, the command line).
+wall times, the command line) and where the inputs were on this machine.
+``environment`` holds what else decides the bytes (native libraries, fonts,
+threads, CPU; see ``runs.environment``): outside the reproducible part,
+because that part is printed in the report and a CPU name must not change it.
 """
 
 from __future__ import annotations
@@ -23,6 +26,13 @@ from reportgen import __version__
 from reportgen.data import Table
 from reportgen.fit import PairFit
 from reportgen.results import RunResults
+from reportgen.runs.environment import (
+    environment_fingerprint,
+    folder_sha256,
+    logo_file,
+    optional_sha256,
+    templates_folder,
+)
 from reportgen.spec import Spec
 
 SCIENTIFIC_PACKAGES = (
@@ -158,11 +168,14 @@ def build_record(
             "command_line_overrides": dict(spec.overrides),
             "data_file": table.path.name,
             "data_sha256": table.sha256,
+            "data_bytes": spec.data_path.stat().st_size,
             "data_rows": table.n_rows,
             "data_encoding": table.encoding or None,
             "engine": ENGINE_TEXT[document.engine],
             "sampler": document.sampler.model_dump(mode="json") | {"cores": cores},
             "master_seed": document.sampler.seed,
+            "templates_sha256": folder_sha256(templates_folder(spec)),
+            "logo_sha256": optional_sha256(logo_file(spec)),
             "seed_derivation": ("numpy SeedSequence(master seed, spawn key from the SHA-256 of the two column "
                                 "names); the same pair always gets the same seed"),
             "pairs": pairs,
@@ -181,5 +194,8 @@ def build_record(
             # so they stay out of the reproducible part)
             "spec_path": str(spec.source_path.resolve()),
             "data_path": str(spec.data_path.resolve()),
+            # the spec as written: the report prints it, so verify needs it when the file has moved
+            "spec_text": spec.source_text,
         },
+        "environment": environment_fingerprint(spec),
     }

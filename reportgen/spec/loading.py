@@ -304,3 +304,40 @@ def with_sampler_overrides(spec: Spec, **overrides: int | None) -> Spec:
     document = spec.document.model_copy(update={"sampler": sampler})
     noted = tuple((f"sampler.{key}", str(value)) for key, value in chosen.items())
     return spec.model_copy(update={"document": document, "overrides": (*spec.overrides, *noted)})
+
+
+def spec_from_resolved(
+    resolved: dict[str, Any],
+    source_path: Path,
+    *,
+    source_sha256: str,
+    source_text: str,
+    overrides: tuple[tuple[str, str], ...] = (),
+    data_path: Path | None = None,
+    where: Path | None = None,
+) -> Spec:
+    """A Spec rebuilt from a resolved spec (a SpecDocument dump, as a run record keeps it), validated again.
+
+    ``source_path`` is where the spec file was, so relative data, logo and template paths resolve as they
+    did; ``data_path`` replaces the data path (a data file that has moved). ``where`` names the file the
+    dump came from in messages.
+
+    Raises
+    ------
+    SpecError
+        When the dump no longer passes the rules (a record from a version with other rules).
+    """
+    where = where or source_path
+    if not isinstance(resolved, dict):
+        raise SpecError(f"{where}: the resolved spec is not a table; it was not written by reportgen")
+    raw = {**resolved}
+    if data_path is not None:
+        raw["data"] = {**(raw.get("data") or {}), "path": str(Path(os.path.abspath(data_path)))}
+    try:
+        document = SpecDocument.model_validate(raw)
+    except ValidationError as exc:
+        raise SpecError(describe_validation_error(exc, where)) from None
+    except ValueError as exc:
+        raise SpecError(f"{where}: {exc}") from None
+    return Spec(document=document, source_path=Path(os.path.abspath(source_path)), source_sha256=source_sha256,
+                source_text=source_text, pairs=expand_pairs(document, where), overrides=overrides)
