@@ -67,7 +67,7 @@ def compare(old_dir: Path, new_dir: Path, out: Path) -> ComparisonOutcome:
     new = load_run(new_dir)
     comparison = compare_runs(old, new, comparison_margin(new), new_data_file(new))
     meta = report_meta(new, f"Changes from {old.label} to {new.label}")
-    html = report.render.render_document("changes.html.j2", change_pages.changes_context(comparison, meta))
+    html = report.render_document("changes.html.j2", change_pages.changes_context(comparison, meta))
     pdf, _ = report.render_pdf(html, new.report_date.isoformat())
     out_dir = resolve_out(out, new.report_date)
     with publishing(out_dir, CHANGE_FILES) as publication:
@@ -83,7 +83,7 @@ def history(paths: Sequence[Path], out: Path) -> HistoryOutcome:
     built = build_history(snapshots)
     latest = max(snapshots, key=lambda s: s.report_date)
     meta = report_meta(latest, f"History of {len(snapshots)} runs, {built.labels[0]} to {built.labels[-1]}")
-    html = report.render.render_document("history.html.j2", change_pages.history_context(built, meta))
+    html = report.render_document("history.html.j2", change_pages.history_context(built, meta))
     pdf, _ = report.render_pdf(html, latest.report_date.isoformat())
     out_dir = resolve_out(out, latest.report_date)
     with publishing(out_dir, HISTORY_FILES) as publication:

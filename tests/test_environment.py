@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from reportgen import assets
 from reportgen.report import render
 from reportgen.runs import environment
 from reportgen.spec import load_spec
@@ -44,7 +45,7 @@ def test_font_hashes_are_those_of_the_files_the_renderer_embeds(fingerprint: dic
     """Checked against hashlib over the files report.render hands to the PDF renderer."""
     _, files = render._font_css()
     assert fingerprint["fonts"] == {path.name: sha256(path) for path in files.values()}
-    assert len(fingerprint["fonts"]) == len(render.FONT_FILES)
+    assert len(fingerprint["fonts"]) == len(assets.FONT_FILES)
 
 
 @pytest.mark.skipif(shutil.which("fc-match") is None, reason="fontconfig's fc-match is not installed")

@@ -16,10 +16,10 @@ import pytest
 from conftest import QUICK_SAMPLER, correlated_frame
 from PIL import Image
 
-from reportgen import audit, runner
+from reportgen import assets, audit, runner
 from reportgen.errors import DataError, OutputError, ReportAssetError, SpecError
 from reportgen.report import render
-from reportgen.runs import verify
+from reportgen.runs import environment, verify
 from reportgen.spec import load_spec
 
 SPEC = """\
@@ -212,18 +212,16 @@ def test_other_font_file_is_explained_by_the_environment(original: tuple[Path, P
                                                          monkeypatch: pytest.MonkeyPatch) -> None:
     """A renderer given another file for the regular face (as after a system font update) writes another
     PDF from the same numbers; verify says so and names the font."""
-    shipped = render._font_css
+    shipped = assets.font_files()
+    substitute = tmp_path / "DejaVuSans.ttf"  # same name, other glyphs: the oblique face's bytes
+    substitute.write_bytes(shipped["italic"].read_bytes())
 
-    def other_regular_face() -> tuple[str, dict[str, Path]]:
-        css, files = shipped()
-        regular = next(path for path in files.values() if path.name == "DejaVuSans.ttf")
-        substitute = tmp_path / "DejaVuSans.ttf"  # same name, other glyphs: the oblique face's bytes
-        substitute.write_bytes(next(p for p in files.values() if p.name == "DejaVuSans-Oblique.ttf").read_bytes())
-        files = {(substitute.as_uri() if path == regular else url): (substitute if path == regular else path)
-                 for url, path in files.items()}
-        return css.replace(regular.as_uri(), substitute.as_uri()), files
+    def other_regular_face() -> dict[str, Path]:
+        return {**shipped, "normal": substitute}
 
-    monkeypatch.setattr(render, "_font_css", other_regular_face)
+    # the renderer and the record both take the font files from reportgen.assets
+    monkeypatch.setattr(render, "font_files", other_regular_face)
+    monkeypatch.setattr(environment, "font_files", other_regular_face)
     result = audit.verify_run(original[1])
     assert result.verdict == verify.WITHIN_ERROR and result.exit_code == 0
     assert {c.name: c.identical for c in result.outputs} == {"results.csv": True, "report.html": True,

@@ -12,11 +12,12 @@ from reportgen.report.render import (
     RenderedReport,
     environment,
     logo_data_uri,
+    render_document,
     render_html,
     render_pdf,
     svg_data_uri,
     template_folders,
 )
 
-__all__ = ["RenderedReport", "build_context", "environment", "logo_data_uri", "render_html", "render_pdf",
-           "svg_data_uri", "template_folders"]
+__all__ = ["RenderedReport", "build_context", "environment", "logo_data_uri", "render_document", "render_html",
+           "render_pdf", "svg_data_uri", "template_folders"]

@@ -42,6 +42,7 @@ from jinja2 import (
 from jinja2.exceptions import SecurityError
 from jinja2.sandbox import ImmutableSandboxedEnvironment
 
+from reportgen.assets import font_files, shipped_templates
 from reportgen.errors import ReportAssetError
 from reportgen.spec import Spec
 
@@ -57,11 +58,6 @@ IMAGE_SIGNATURES = {
 # multi-picture JPEG many cameras write as MPO).
 LOGO_DECODERS = ("PNG", "JPEG")
 LOGO_FORMATS = {"PNG": "image/png", "JPEG": "image/jpeg", "MPO": "image/jpeg"}
-FONT_FILES = {
-    "normal": "DejaVuSans.ttf",
-    "bold": "DejaVuSans-Bold.ttf",
-    "italic": "DejaVuSans-Oblique.ttf",
-}
 TEMPLATE_SUFFIXES = (".j2", ".css")
 MAX_TEMPLATE_BYTES = 1024 * 1024
 MAX_CHECKED_TEMPLATES = 500  # report.templates naming a huge folder must not make the early check walk it all
@@ -166,11 +162,7 @@ class ReportSandbox(ImmutableSandboxedEnvironment):
 
 def template_folders(user_folder: Path | None) -> list[Path]:
     """The user's template folder (if any) first, then the shipped templates."""
-    package_dir = Path(__file__).resolve().parent.parent
-    shipped = package_dir / "templates"
-    if not shipped.is_dir():  # running from a source checkout
-        shipped = package_dir.parent / "templates"
-    folders = [shipped]
+    folders = [shipped_templates()]
     if user_folder is not None:
         if not user_folder.is_dir():
             raise ReportAssetError(f"{user_folder}: report.templates must name a folder of templates")
@@ -388,13 +380,9 @@ def render_document(template: str, context: dict[str, Any], user_templates: Path
 
 
 def _font_css() -> tuple[str, dict[str, Path]]:
-    import matplotlib
-
-    font_dir = Path(matplotlib.get_data_path()) / "fonts" / "ttf"
     allowed: dict[str, Path] = {}
     rules = []
-    for style, filename in FONT_FILES.items():
-        path = (font_dir / filename).resolve()
+    for style, path in font_files().items():
         url = path.as_uri()
         allowed[url] = path
         weight = "bold" if style == "bold" else "normal"

@@ -23,7 +23,7 @@ from typing import Any
 
 import numpy as np
 
-from reportgen.report import render
+from reportgen.assets import font_files, shipped_templates
 from reportgen.spec import Spec
 
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS", "NUMBA_NUM_THREADS",
@@ -187,8 +187,7 @@ def _fontconfig_version() -> str:
 
 def report_fonts() -> dict[str, Any]:
     """The font files the report embeds (the shipped faces the renderer is given), by file name and hash."""
-    _, files = render._font_css()  # the renderer's own list, so a changed face is seen here too
-    return {Path(path).name: file_sha256(Path(path)) for path in sorted(files.values())}
+    return {path.name: file_sha256(path) for path in sorted(font_files().values())}
 
 
 def css_families(folders: list[Path]) -> list[str]:
@@ -242,7 +241,7 @@ def cpu_model() -> str:
 def environment_fingerprint(spec: Spec) -> dict[str, Any]:
     """Everything outside the inputs and the package versions that can change a run's bytes."""
     user_templates = templates_folder(spec)
-    shipped = render.template_folders(None)
+    shipped = [shipped_templates()]
     return {
         "cpu_model": cpu_model(),
         "numerical_libraries": _guarded(numerical_libraries),
