@@ -13,6 +13,7 @@ from __future__ import annotations
 import ctypes
 import hashlib
 import importlib.metadata
+import json
 import os
 import platform
 import re
@@ -105,9 +106,12 @@ def numerical_libraries() -> dict[str, Any]:
     except ImportError:
         pools: Any = "threadpoolctl not installed"
     else:
-        # file paths differ between machines without changing a bit of the results: left out
-        pools = [{key: value for key, value in pool.items() if key not in ("filepath", "prefix")}
-                 for pool in threadpoolctl.threadpool_info()]
+        # file paths differ between machines without changing a bit of the results: only the file's name is
+        # kept; the libraries load in an order that varies between processes, so they are sorted
+        pools = sorted(({"library": Path(str(pool.get("filepath", ""))).name,
+                         **{key: value for key, value in pool.items() if key not in ("filepath", "prefix")}}
+                        for pool in threadpoolctl.threadpool_info()),
+                       key=lambda pool: json.dumps(pool, sort_keys=True, default=str))
     return {"numpy_build": built, "threadpools": pools}
 
 
