@@ -25,6 +25,7 @@ from typing import Any
 import numpy as np
 
 from reportgen.assets import font_files, shipped_templates
+from reportgen.data import file_sha256
 from reportgen.spec import Spec
 
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS", "NUMBA_NUM_THREADS",
@@ -39,14 +40,6 @@ NATIVE_LIBRARIES = re.compile(r"lib(pango|pangoft2|harfbuzz|harfbuzz-subset|font
 GENERIC_FAMILIES = frozenset({"inherit", "initial", "serif", "sans-serif", "monospace", "cursive", "fantasy",
                               "system-ui"})
 UNREADABLE = "unreadable"
-
-
-def file_sha256(path: Path) -> str:
-    digest = hashlib.sha256()
-    with path.open("rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
 
 
 def folder_sha256(folder: Path | None) -> str:
