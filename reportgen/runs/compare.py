@@ -189,8 +189,8 @@ def _prefix_matches(path: Path, size: int, sha256: str) -> bool:
 def data_change(old: RunSnapshot, new: RunSnapshot, new_data: Path | None) -> DataChange:
     before, after = old.reproducible, new.reproducible
     old_rows, new_rows = int(before["data_rows"]), int(after["data_rows"])
-    fields = dict(old_file=str(old.record.get("run", {}).get("data_path") or before.get("data_file", "")),
-                  new_file=str(new_data or new.record.get("run", {}).get("data_path") or after.get("data_file", "")),
+    # file names, not paths: the report must not change with the folder a run happened to sit in
+    fields = dict(old_file=str(before.get("data_file", "")), new_file=str(after.get("data_file", "")),
                   old_sha256=before["data_sha256"], new_sha256=after["data_sha256"],
                   old_rows=old_rows, new_rows=new_rows)
     if before["data_sha256"] == after["data_sha256"]:
