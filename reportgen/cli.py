@@ -27,7 +27,8 @@ import click
 
 from reportgen import __version__
 from reportgen.errors import ReportgenError, SpecError, one_line
-from reportgen.runs.publish import Interrupted, handling_signals, resolve_out
+from reportgen.runs.publish import resolve_out
+from reportgen.runs.signals import Interrupted, handling_signals
 
 F = TypeVar("F", bound=Callable[..., Any])
 DEMO_DIR = Path(__file__).resolve().parent / "demo"

@@ -33,7 +33,7 @@ from reportgen.data import PairData, Table, load_pairs, load_table
 from reportgen.errors import OutputError
 from reportgen.fit import Fitter, PairFit
 from reportgen.results import RunResults, pair_outcome, results_rows, run_results, sampled_models
-from reportgen.runs import publish
+from reportgen.runs import publish, signals
 from reportgen.runs.compare import Comparison, changes_rows, compare_runs
 from reportgen.runs.record import RunClock, build_record, draws_file
 from reportgen.runs.snapshot import RunSnapshot, load_run
@@ -211,7 +211,7 @@ def fit_all(
                 else:
                     failures.update({model: reason} if (reason := _not_finite(fit)) else {})
                     done.update({} if reason else {model: fit})
-            publish.raise_if_interrupted()
+            signals.raise_if_interrupted()
             for warning in caught:
                 log.event("sampler warning", pair=key, level="warning", model=model,
                           message=" ".join(str(warning.message).split())[:300])

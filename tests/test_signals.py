@@ -18,7 +18,7 @@ import pytest
 
 from reportgen import runner
 from reportgen.fit import Fitter, PairFit
-from reportgen.runs import publish
+from reportgen.runs import signals
 from tests.test_bad_input import invoke
 from tests.test_publish import child, copy_of, finished_run, ours_beside, snapshot, sums_check
 
@@ -65,14 +65,14 @@ def test_sigterm_during_the_swap_waits_and_says_the_outputs_were_published(tmp_p
 
 
 def test_signals_are_held_inside_the_block_and_raised_after() -> None:
-    with publish.handling_signals() as state:
-        with pytest.raises(publish.Interrupted) as raised:
-            with publish.signals_held():
+    with signals.handling_signals() as state:
+        with pytest.raises(signals.Interrupted) as raised:
+            with signals.signals_held():
                 os.kill(os.getpid(), signal.SIGTERM)
                 time.sleep(0.05)  # the handler has run by now, and recorded rather than raised
                 assert state.received == signal.SIGTERM
         assert raised.value.signum == signal.SIGTERM
-    assert signal.getsignal(signal.SIGTERM) is not publish._on_signal  # the old handler is back
+    assert signal.getsignal(signal.SIGTERM) is not signals._on_signal  # the old handler is back
 
 
 def _nan_padded_fit(pair: object, model: str) -> PairFit:

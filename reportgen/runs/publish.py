@@ -20,23 +20,21 @@ import ctypes
 import datetime as dt
 import errno
 import fcntl
-import hashlib
 import json
 import os
 import re
 import secrets
 import shlex
 import shutil
-import signal
 import sys
-import threading
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass, field
 from pathlib import Path
 
+from reportgen.data import file_sha256
 from reportgen.errors import OutputError
+from reportgen.runs.signals import mark_published, signals_held
 
 SUMS = "SHA256SUMS"
 RUN_LOG = "run.log"
@@ -45,7 +43,6 @@ PLACEHOLDER = re.compile(r"\{([^{}]*)\}")
 # Our own names inside a mount point (lock, journal, staging and previous copies); nothing else is ours.
 MACHINERY = re.compile(r"\.reportgen(\.lock|-journal\.json(\.tmp)?|-(staging|previous)-[0-9a-f]{8})")
 JOURNAL = ".reportgen-journal.json"
-HELD = (signal.SIGINT, signal.SIGTERM)
 
 
 def resolve_out(out: Path, report_date: dt.date) -> Path:
@@ -59,71 +56,6 @@ def resolve_out(out: Path, report_date: dt.date) -> Path:
         return values[match.group(1)]
 
     return Path(PLACEHOLDER.sub(value, str(out)))
-
-
-# ---------------------------------------------------------------------------------------------- signals
-
-
-class Interrupted(KeyboardInterrupt):
-    """Ctrl-C or SIGTERM; a KeyboardInterrupt, so code that stops on Ctrl-C stops on both."""
-
-    def __init__(self, signum: int) -> None:
-        super().__init__(signal.Signals(signum).name)
-        self.signum = signum
-
-
-@dataclass
-class SignalState:
-    received: int | None = None
-    holding: bool = False
-    published: list[Path] = field(default_factory=list)
-
-
-_STATE = SignalState()  # replaced for the length of each handling_signals() block
-
-
-def _on_signal(signum: int, frame: object) -> None:
-    # Recorded first: the sampler catches the exception raised here and returns padded draws, so the
-    # run looks at the record after each fit (raise_if_interrupted) rather than trusting the exception.
-    _STATE.received = _STATE.received or signum
-    if not _STATE.holding:
-        raise Interrupted(signum)
-
-
-@contextmanager
-def handling_signals() -> Iterator[SignalState]:
-    """Ctrl-C and SIGTERM raise ``Interrupted`` (and are recorded) until the block ends; the state says
-    afterwards which folders were published, so the message about an interrupt can be true."""
-    global _STATE
-    state, outer = SignalState(), _STATE
-    _STATE = state
-    installed = threading.current_thread() is threading.main_thread()  # signal.signal() works only there
-    previous = {signum: signal.signal(signum, _on_signal) for signum in HELD} if installed else {}
-    try:
-        yield state
-    finally:
-        for signum, handler in previous.items():
-            signal.signal(signum, handler if handler is not None else signal.SIG_DFL)
-        _STATE = outer
-
-
-def raise_if_interrupted() -> None:
-    if _STATE.received is not None:
-        raise Interrupted(_STATE.received)
-
-
-@contextmanager
-def signals_held() -> Iterator[None]:
-    """Ctrl-C and SIGTERM wait until the block ends. The mask stops delivery to this thread; the flag
-    covers a signal whose Python handler was already due when the mask went up."""
-    _STATE.holding = True
-    mask = signal.pthread_sigmask(signal.SIG_BLOCK, HELD)
-    try:
-        yield
-    finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, mask)
-        _STATE.holding = False
-    raise_if_interrupted()
 
 
 # ------------------------------------------------------------------------------------ places and the lock
@@ -237,18 +169,11 @@ def _foreign(folder: Path, outputs: frozenset[str]) -> list[str]:
     return found
 
 
-def _sha256(path: Path) -> str:
-    digest = hashlib.sha256()
-    with path.open("rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
-
 
 def write_sums(folder: Path) -> None:
     """SHA256SUMS in the format ``sha256sum -c`` reads: every file under ``folder`` but itself, sorted."""
     paths = sorted((p.relative_to(folder).as_posix(), p) for p in folder.rglob("*") if p.is_file())
-    lines = [f"{_sha256(path)}  {name}\n" for name, path in paths if name != SUMS]
+    lines = [f"{file_sha256(path)}  {name}\n" for name, path in paths if name != SUMS]
     (folder / SUMS).write_text("".join(lines), encoding="utf-8")
 
 
@@ -411,7 +336,7 @@ class Publication:
                 raise OutputError(f"{self.out_dir}: could not publish the outputs: {_cause(exc, source, target)}; "
                                   "the previous outputs were left as they were") from None
             self.committed = True
-            _STATE.published.append(self.out_dir)
+            mark_published(self.out_dir)
         if old is not None:
             shutil.rmtree(old, ignore_errors=True)  # left behind by a crash here, it goes at the next run
 
