@@ -4,6 +4,7 @@ with ``report`` and publishes one output folder in one step, as ``run`` does."""
 
 from __future__ import annotations
 
+import datetime as dt
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -17,8 +18,6 @@ from reportgen.runs.history import History, build_history, find_runs, history_ro
 from reportgen.runs.publish import publishing, resolve_out
 from reportgen.runs.snapshot import RunSnapshot, load_run
 
-CHANGE_FILES = frozenset({"changes.html", "changes.pdf", "changes.csv"})
-HISTORY_FILES = frozenset({"history.html", "history.pdf", "history.csv"})
 DEFAULT_MARGIN = 0.1
 
 
@@ -62,19 +61,26 @@ def new_data_file(snapshot: RunSnapshot) -> Path | None:
     return Path(recorded) if recorded and Path(recorded).is_file() else None
 
 
+def publish_document(stem: str, context: dict[str, Any], date: dt.date, csv_text: str, out: Path) -> Path:
+    """Render ``<stem>.html.j2`` as HTML and PDF and publish both with ``<stem>.csv`` into ``out`` in one step."""
+    html = report.render_document(f"{stem}.html.j2", context)
+    pdf, _ = report.render_pdf(html, date.isoformat())
+    out_dir = resolve_out(out, date)
+    with publishing(out_dir, frozenset({f"{stem}.html", f"{stem}.pdf", f"{stem}.csv"})) as publication:
+        (publication.staging / f"{stem}.html").write_text(html, encoding="utf-8")
+        (publication.staging / f"{stem}.pdf").write_bytes(pdf)
+        (publication.staging / f"{stem}.csv").write_text(csv_text, encoding="utf-8")
+        publication.commit()
+    return out_dir
+
+
 def compare(old_dir: Path, new_dir: Path, out: Path) -> ComparisonOutcome:
     old = load_run(old_dir)
     new = load_run(new_dir)
     comparison = compare_runs(old, new, comparison_margin(new), new_data_file(new))
     meta = report_meta(new, f"Changes from {old.label} to {new.label}")
-    html = report.render_document("changes.html.j2", change_pages.changes_context(comparison, meta))
-    pdf, _ = report.render_pdf(html, new.report_date.isoformat())
-    out_dir = resolve_out(out, new.report_date)
-    with publishing(out_dir, CHANGE_FILES) as publication:
-        (publication.staging / "changes.html").write_text(html, encoding="utf-8")
-        (publication.staging / "changes.pdf").write_bytes(pdf)
-        (publication.staging / "changes.csv").write_text(changes_csv(comparison), encoding="utf-8")
-        publication.commit()
+    out_dir = publish_document("changes", change_pages.changes_context(comparison, meta), new.report_date,
+                               changes_csv(comparison), out)
     return ComparisonOutcome(out_dir=out_dir, comparison=comparison)
 
 
@@ -83,12 +89,6 @@ def history(paths: Sequence[Path], out: Path) -> HistoryOutcome:
     built = build_history(snapshots)
     latest = max(snapshots, key=lambda s: s.report_date)
     meta = report_meta(latest, f"History of {len(snapshots)} runs, {built.labels[0]} to {built.labels[-1]}")
-    html = report.render_document("history.html.j2", change_pages.history_context(built, meta))
-    pdf, _ = report.render_pdf(html, latest.report_date.isoformat())
-    out_dir = resolve_out(out, latest.report_date)
-    with publishing(out_dir, HISTORY_FILES) as publication:
-        (publication.staging / "history.html").write_text(html, encoding="utf-8")
-        (publication.staging / "history.pdf").write_bytes(pdf)
-        (publication.staging / "history.csv").write_text(table_csv(*history_rows(built)), encoding="utf-8")
-        publication.commit()
+    out_dir = publish_document("history", change_pages.history_context(built, meta), latest.report_date,
+                               table_csv(*history_rows(built)), out)
     return HistoryOutcome(out_dir=out_dir, history=built)
