@@ -33,14 +33,19 @@ def interval(draws: np.ndarray, mass: float, kind: str) -> tuple[float, float]:
     return hdi_interval(draws, mass) if kind == "hdi" else central_interval(draws, mass)
 
 
+def rule_indicator(rho: np.ndarray, rule: Rule) -> np.ndarray:
+    """Whether each draw satisfies the rule's statement, in the draws' own shape."""
+    values = np.asarray(rho)
+    if rule.statement == "above":
+        return values > rule.threshold
+    if rule.statement == "below":
+        return values < rule.threshold
+    return (values > rule.lower) & (values < rule.upper)
+
+
 def rule_probability(rho: np.ndarray, rule: Rule) -> float:
     """Posterior probability of the rule's statement, the share of draws where it holds."""
-    values = np.ravel(rho)
-    if rule.statement == "above":
-        return float(np.mean(values > rule.threshold))
-    if rule.statement == "below":
-        return float(np.mean(values < rule.threshold))
-    return float(np.mean((values > rule.lower) & (values < rule.upper)))
+    return float(np.mean(rule_indicator(rho, rule)))
 
 
 def rope_probability(rho: np.ndarray, rope: Rope) -> float:

@@ -18,7 +18,7 @@ from reportgen.data import PairData
 from reportgen.report.changes import long_date, since_previous_context
 from reportgen.report.checks import checks_context, highlighted_rows, run_checks_context
 from reportgen.report.render import logo_data_uri, svg_data_uri
-from reportgen.results import PairResult, RunResults
+from reportgen.results import PairResult, RunResults, decisions
 from reportgen.spec import Spec
 
 if TYPE_CHECKING:
@@ -160,6 +160,8 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
             "required": interpret.format_required(rule.required),
             "verdict": rule.verdict,
             "sentence": rule.sentence,
+            "mcse": "" if rule.mcse == 0.0 else f"{rule.mcse:.3f}",
+            "borderline": rule.borderline,
         } for rule in result.rules],
         "parameter_rows": rows,
         "reference": {
@@ -267,6 +269,13 @@ def build_context(
         } for p in pairs],
         "model_warnings": run_checks_context(results, _anchor),
         "prior_sensitive": [p.title for p in results.pairs if p.sensitivity and p.sensitivity.prior_sensitive],
+        "borderline": [{"anchor": p["anchor"], "title": result.title, "rule": rule.name,
+                        "probability": interpret.format_probability(rule.probability),
+                        "required": interpret.format_required(rule.required), "mcse": f"{rule.mcse:.3f}"}
+                       for result, p in zip(results.pairs, pairs, strict=True) for rule in result.rules
+                       if rule.borderline],
+        "many_decisions": decisions.many_decisions_sentence(decisions.many_decisions(
+            [(rule.probability, rule.verdict == "met") for result in results.pairs for rule in result.rules])),
         "forest": svg_data_uri(forest),
         "matrices": matrix_figures(results, spec),
         "pairs": pairs,

@@ -17,6 +17,7 @@ from reportgen.data import PairData
 from reportgen.diagnostics import NOT_SAMPLED, STATUS_ORDER, Diagnosis, diagnose
 from reportgen.fit import PairFit, derive_seed
 from reportgen.models.rank import rank_posterior
+from reportgen.results import decisions
 from reportgen.spec import Spec
 
 R_LIMIT = 1.0 - 1e-9  # the exact engine's domain; the data stage refuses |r| this close to 1
@@ -44,6 +45,8 @@ class RuleOutcome:
     required: float
     verdict: str
     sentence: str
+    mcse: float = 0.0  # Monte Carlo standard error of the probability; 0 when computed by quadrature
+    borderline: bool = False  # within decisions.BORDERLINE_MCSE errors of the requirement
 
 
 @dataclass(frozen=True)
@@ -169,15 +172,23 @@ def _posterior_covariance(draws: dict[str, np.ndarray]) -> np.ndarray:
     return np.array([[sx * sx, rho * sx * sy], [rho * sx * sy, sy * sy]])
 
 
-def _rule_outcomes(spec: Spec, probabilities: dict[str, float]) -> tuple[RuleOutcome, ...]:
-    return tuple(RuleOutcome(
-        name=rule.name,
-        statement=interpret.rule_statement(rule),
-        probability=probabilities[rule.name],
-        required=rule.required_probability,
-        verdict=interpret.rule_verdict(probabilities[rule.name], rule.required_probability),
-        sentence=interpret.rule_sentence(rule, probabilities[rule.name]),
-    ) for rule in spec.document.rules)
+def _rule_outcomes(spec: Spec, probabilities: dict[str, float],
+                   mcses: dict[str, float] | None = None) -> tuple[RuleOutcome, ...]:
+    """Each rule's verdict; with ``mcses`` (sampled probabilities) also its Monte Carlo error."""
+    outcomes = []
+    for rule in spec.document.rules:
+        probability = probabilities[rule.name]
+        mcse = (mcses or {}).get(rule.name, 0.0)
+        borderline = decisions.is_borderline(probability, rule.required_probability, mcse)
+        sentence = interpret.rule_sentence(rule, probability)
+        if borderline:
+            sentence += " " + decisions.borderline_sentence(probability, rule.required_probability, mcse)
+        outcomes.append(RuleOutcome(
+            name=rule.name, statement=interpret.rule_statement(rule), probability=probability,
+            required=rule.required_probability,
+            verdict=interpret.rule_verdict(probability, rule.required_probability),
+            sentence=sentence, mcse=mcse, borderline=borderline))
+    return tuple(outcomes)
 
 
 def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
@@ -190,6 +201,8 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
     probabilities = {rule.name: summaries.rule_probability(rho_draws, rule) for rule in document.rules}
     diagnosis = diagnose(fit.draws, fit.diverging, fit.energy, document.diagnostics)
     rho_diagnostics = next(p for p in diagnosis.parameters if p.name == "rho")
+    mcses = {rule.name: decisions.indicator_mcse(summaries.rule_indicator(fit.draws["rho"], rule),
+                                                 rho_diagnostics.ess_bulk) for rule in document.rules}
     if fit.model == "normal":
         check = cross_check(
             rho_draws, rho_diagnostics.mcse_mean, rho_diagnostics.ess_bulk, data.stats.n, data.stats.sample_r,
@@ -208,7 +221,7 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
         p_positive=float(np.mean(rho_draws > 0)),
         r2_median=float(np.median(rho_draws ** 2)),
         rope_probability=summaries.rope_probability(rho_draws, document.rope),
-        rules=_rule_outcomes(spec, probabilities), diagnosis=diagnosis, check=check,
+        rules=_rule_outcomes(spec, probabilities, mcses), diagnosis=diagnosis, check=check,
         seed=fit.seed, seconds=fit.seconds,
         covariance=_posterior_covariance(fit.draws),
         mean_vector=(float(np.mean(fit.draws["mu_x"])), float(np.mean(fit.draws["mu_y"]))),

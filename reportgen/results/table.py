@@ -1,4 +1,4 @@
-"""The rows of results.csv: fixed columns first, then further columns, then one p_<rule> per rule."""
+"""The rows of results.csv: fixed columns first, then further columns, then p_<rule> and p_<rule>_mcse per rule."""
 
 from __future__ import annotations
 
@@ -42,13 +42,14 @@ def model_check_cells(pair: PairResult) -> list[str]:
 
 
 def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
-    """The rows of results.csv: the fixed columns, then extras, then one p_<rule> per rule."""
+    """The rows of results.csv: the fixed columns, then extras, then p_<rule> and its Monte Carlo error."""
     rule_names = results.rule_names
     interval_text = f"{results.interval_kind} {results.credible_mass:g}"
     header = [*CSV_COLUMNS, "p_positive", "p_rope", "rope_decision", "interval",
               "fisher_lower", "fisher_upper", "p_value", "seed", "status_reasons",
               "exact_mean", "exact_sd", "exact_mean_gap", "log_bf10", "savage_dickey_bf10", "engine",
-              *MODEL_CHECK_COLUMNS, *[f"p_{name}" for name in rule_names]]
+              *MODEL_CHECK_COLUMNS, "borderline_rules",
+              *[column for name in rule_names for column in (f"p_{name}", f"p_{name}_mcse")]]
     rows: list[list[object]] = []
     for pair in results.pairs:
         rho = pair.rho
@@ -64,7 +65,8 @@ def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
             _number(pair.crosscheck.exact_mean), _number(pair.crosscheck.exact_sd),
             _number(pair.crosscheck.mean_gap), _number(pair.crosscheck.log_bf10),
             _number(pair.crosscheck.savage_dickey_bf10), pair.engine,
-            *model_check_cells(pair), *[repr(rule.probability) for rule in pair.rules],
+            *model_check_cells(pair), ";".join(rule.name for rule in pair.rules if rule.borderline),
+            *[cell for rule in pair.rules for cell in (repr(rule.probability), repr(rule.mcse))],
         ])
     return header, rows
 

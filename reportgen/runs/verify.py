@@ -288,6 +288,9 @@ def column_mcse(column: str, row: dict[str, str], entry: dict[str, Any], mass: f
         return sd / math.sqrt(2.0 * ess_bulk)
     if column in BOUND_COLUMNS:
         return math.sqrt(tail * (1.0 - tail)) / float(stats.norm.pdf(z)) * sd / math.sqrt(ess_tail)
+    recorded = _number(row.get(f"{column}_mcse", ""))
+    if column.startswith("p_") and recorded is not None and recorded > 0.0:
+        return recorded  # a rule's own error, from the ESS of its indicator draws
     if column.startswith("p_") or column == "ppc_p_r":
         p = _number(row.get(column, ""))
         return math.sqrt(max(p * (1.0 - p) if p is not None else 0.25, 1.0 / ess_bulk) / ess_bulk)
