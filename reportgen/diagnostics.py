@@ -16,6 +16,10 @@ from reportgen.spec import Diagnostics as Thresholds
 
 STATUS_ORDER = {"pass": 0, "warn": 1, "fail": 2}
 
+# Codes of the checks a diagnosis can break, so the advice can depend on which one failed: more draws cure
+# a low ESS or a high R-hat, but not divergent transitions.
+RHAT, ESS_BULK, ESS_TAIL, DIVERGENCES, BFMI = "rhat", "ess_bulk", "ess_tail", "divergences", "bfmi"
+
 
 @dataclass(frozen=True)
 class ParameterDiagnostics:
@@ -35,6 +39,8 @@ class Diagnosis:
     bfmi_min: float
     status: str  # "pass" | "warn" | "fail"
     reasons: tuple[str, ...]
+    # the codes above of every broken threshold, hard and soft, in the order of ``reasons``
+    broken: tuple[str, ...] = ()
 
     @property
     def rhat_max(self) -> float:
@@ -107,22 +113,23 @@ def diagnose(
     divergences = int(np.sum(diverging))
     bfmi_values = bfmi(energy)
     bfmi_min = float(np.nanmin(bfmi_values)) if np.isfinite(bfmi_values).any() else float("nan")
-    fails: list[str] = []
-    warns: list[str] = []
+    fails: list[tuple[str, str]] = []  # (code, reason)
+    warns: list[tuple[str, str]] = []
     worst_rhat = max(parameters, key=lambda p: p.rhat)
     if not worst_rhat.rhat < thresholds.rhat_max:
-        fails.append(f"R-hat of {worst_rhat.name} is {worst_rhat.rhat:.3f} "
-                     f"(must be below {thresholds.rhat_max:g})")
-    for kind in ("bulk", "tail"):
+        fails.append((RHAT, f"R-hat of {worst_rhat.name} is {worst_rhat.rhat:.3f} "
+                            f"(must be below {thresholds.rhat_max:g})"))
+    for kind, code in (("bulk", ESS_BULK), ("tail", ESS_TAIL)):
         worst = min(parameters, key=lambda p, k=kind: getattr(p, f"ess_{k}"))
         value = getattr(worst, f"ess_{kind}")
         if value < thresholds.ess_min:
-            fails.append(f"{kind} ESS of {worst.name} is {value:.0f} "
-                         f"(needs at least {thresholds.ess_min:g})")
+            fails.append((code, f"{kind} ESS of {worst.name} is {value:.0f} "
+                                f"(needs at least {thresholds.ess_min:g})"))
     if divergences > thresholds.max_divergences:
-        fails.append(f"{divergences} divergent transitions (at most {thresholds.max_divergences} allowed)")
+        fails.append((DIVERGENCES, f"{divergences} divergent transitions "
+                                   f"(at most {thresholds.max_divergences} allowed)"))
     if np.isfinite(bfmi_min) and bfmi_min < thresholds.bfmi_min:
-        warns.append(f"E-BFMI is {bfmi_min:.2f} (below {thresholds.bfmi_min:g})")
+        warns.append((BFMI, f"E-BFMI is {bfmi_min:.2f} (below {thresholds.bfmi_min:g})"))
     status = "fail" if fails else "warn" if warns else "pass"
     return Diagnosis(
         parameters=parameters,
@@ -130,5 +137,6 @@ def diagnose(
         total_draws=int(np.size(diverging)),
         bfmi_min=bfmi_min,
         status=status,
-        reasons=tuple(fails + warns),
+        reasons=tuple(reason for _, reason in fails + warns),
+        broken=tuple(code for code, _ in fails + warns),
     )

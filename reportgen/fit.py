@@ -5,6 +5,10 @@ call, even when only ``pm.Data`` changes. Here each structure is compiled once
 by nutpie and every pair is fed to the compiled model with ``with_data``, so a
 pair costs a fraction of a second after the first compile (see
 ``benchmarks/bench_fit.py`` for the measured ratios).
+
+A fit with more divergent transitions than the spec allows is sampled again at a
+higher target acceptance, on the same compiled model and with the same seed: a
+retry costs one more sampling run, never a compile, and reruns stay identical.
 """
 
 from __future__ import annotations
@@ -29,6 +33,13 @@ PARAMETERS = normal_model.PARAMETERS
 # process) reuses them. Keyed by model structure; the data are swapped per pair.
 _COMPILED: dict[str, Any] = {}
 
+# Target acceptances of the automatic retries after too many divergent transitions. A higher target
+# makes the adapted step size smaller, so the sampler can follow the sharp curvature where it diverged
+# (common practice with NUTS; Betancourt 2017, "A Conceptual Introduction to Hamiltonian Monte Carlo",
+# on divergences). Each retry costs one sampling run on the compiled model.
+RETRY_TARGETS = (0.95, 0.99)
+MAX_RETRIES = 2
+
 
 def derive_seed(master_seed: int, x: str, y: str, model: str = "normal") -> int:
     """A pair's seed from the master seed and the pair's identity alone.
@@ -45,6 +56,20 @@ def derive_seed(master_seed: int, x: str, y: str, model: str = "normal") -> int:
     return int(sequence.generate_state(1, dtype=np.uint32)[0])
 
 
+def retry_targets(first: float) -> tuple[float, ...]:
+    """The target acceptances tried after ``first``: only higher ones (never below the spec's own), at most two."""
+    return tuple(target for target in RETRY_TARGETS if target > first)[:MAX_RETRIES]
+
+
+@dataclass(frozen=True)
+class SamplingAttempt:
+    """One sampling run of a pair: its target acceptance, its divergent transitions, its wall time."""
+
+    target_accept: float
+    divergences: int
+    seconds: float
+
+
 @dataclass(frozen=True)
 class PairFit:
     """Posterior draws of one pair in the data's units, shaped (chain, draw)."""
@@ -56,16 +81,32 @@ class PairFit:
     diverging: np.ndarray
     energy: np.ndarray
     inference_data: Any = field(repr=False)
-    seconds: float
+    seconds: float  # every attempt's sampling, plus swapping the data in
     compile_seconds: float
+    # every sampling run in order; the draws are the last one's (empty for fits made elsewhere, as in tests)
+    attempts: tuple[SamplingAttempt, ...] = ()
+
+    @property
+    def target_accept(self) -> float:
+        """The target acceptance of the run whose draws these are (NaN when no attempt is recorded)."""
+        return self.attempts[-1].target_accept if self.attempts else float("nan")
+
+    @property
+    def retried(self) -> bool:
+        return len(self.attempts) > 1
 
 
 class Fitter:
-    """Holds compiled models, one per model structure, for reuse across pairs."""
+    """Holds compiled models, one per model structure, for reuse across pairs.
 
-    def __init__(self, sampler: Sampler, cores: int | None = None) -> None:
+    With ``max_divergences`` (the spec's ``diagnostics.max_divergences``), a fit with more divergent
+    transitions is sampled again at the targets of ``retry_targets``; ``None`` (the default) never retries.
+    """
+
+    def __init__(self, sampler: Sampler, cores: int | None = None, *, max_divergences: int | None = None) -> None:
         self.sampler = sampler
         self.cores = cores or max(1, min(sampler.chains, os.cpu_count() or 1))
+        self.max_divergences = max_divergences
         self.compile_seconds: dict[str, float] = {}
 
     def _compiled_for(self, inputs: ModelInputs, model: str) -> tuple[Any, float]:
@@ -92,17 +133,27 @@ class Fitter:
         seed = derive_seed(master_seed, pair.pair.x, pair.pair.y, model)
         started = time.perf_counter()
         with_data = compiled.with_data(**inputs.values)
-        idata = nutpie.sample(
-            with_data,
-            draws=self.sampler.draws,
-            tune=self.sampler.tune,
-            chains=self.sampler.chains,
-            cores=self.cores,
-            seed=seed,
-            target_accept=self.sampler.target_accept,
-            progress_bar=False,
-            save_warmup=False,
-        )
+        retries = retry_targets(self.sampler.target_accept) if self.max_divergences is not None else ()
+        attempts: list[SamplingAttempt] = []
+        for target in (self.sampler.target_accept, *retries):
+            attempt_started = time.perf_counter()
+            # the same seed at every target: the retry is as deterministic as the first run
+            idata = nutpie.sample(
+                with_data,
+                draws=self.sampler.draws,
+                tune=self.sampler.tune,
+                chains=self.sampler.chains,
+                cores=self.cores,
+                seed=seed,
+                target_accept=target,
+                progress_bar=False,
+                save_warmup=False,
+            )
+            divergences = int(np.sum(idata.sample_stats["diverging"].values))
+            attempts.append(SamplingAttempt(target_accept=target, divergences=divergences,
+                                            seconds=time.perf_counter() - attempt_started))
+            if not self._needs_retry(divergences, idata):
+                break
         seconds = time.perf_counter() - started
         posterior = idata.posterior
         scale = Standardisation.of(pair.stats)
@@ -123,4 +174,12 @@ class Fitter:
             inference_data=idata,
             seconds=seconds,
             compile_seconds=compile_seconds,
+            attempts=tuple(attempts),
         )
+
+    def _needs_retry(self, divergences: int, idata: Any) -> bool:
+        if self.max_divergences is None or divergences <= self.max_divergences:
+            return False
+        # non-finite draws mean the sampler stopped early (Ctrl-C is caught inside it and the draws padded):
+        # another run would only delay the stop, and the runner refuses such draws anyway
+        return all(bool(np.isfinite(values).all()) for values in idata.posterior.data_vars.values())

@@ -318,9 +318,12 @@ def run(
     spec = prepared.spec
     out_dir = publish.resolve_out(out_dir, spec.document.report.date or dt.date.today())
     check_output_folder(out_dir, prepared)
-    fitter = fitter or Fitter(spec.document.sampler)
-    if fitter.sampler != spec.document.sampler:
-        fitter = Fitter(spec.document.sampler, cores=fitter.cores)
+    # the spec's divergence limit decides when a fit is re-run at a higher target acceptance; a fitter made
+    # elsewhere (cli, audit) is rebuilt when it differs (the compiled models are shared, so this is cheap)
+    max_divergences = spec.document.diagnostics.max_divergences
+    fitter = fitter or Fitter(spec.document.sampler, max_divergences=max_divergences)
+    if fitter.sampler != spec.document.sampler or fitter.max_divergences != max_divergences:
+        fitter = Fitter(spec.document.sampler, cores=fitter.cores, max_divergences=max_divergences)
     with publish.publishing(out_dir, frozenset(OUTPUT_FILES + PREVIOUS_OUTPUTS)) as publication:
         staging = publication.staging
         log = RunLog(staging / publish.RUN_LOG)

@@ -156,6 +156,14 @@ def build_record(
             "bfmi_min": _finite(d.bfmi_min, 6),
             "engine": pair.engine,
             "log_bf10": round(pair.crosscheck.log_bf10, 9),
+            # every sampling run (a fit with too many divergences is re-run at a higher target acceptance);
+            # the wall times stay out: this part of the record must be identical when the run is repeated
+            "target_accept": fit.target_accept if fit and fit.attempts else None,
+            "sampling_attempts": [{"target_accept": a.target_accept, "divergences": a.divergences}
+                                  for a in (fit.attempts if fit else ())],
+            "robust_target_accept": robust.target_accept if robust and robust.attempts else None,
+            "robust_sampling_attempts": [{"target_accept": a.target_accept, "divergences": a.divergences}
+                                         for a in (robust.attempts if robust else ())],
         })
     finished = dt.datetime.now(dt.UTC)
     return {
