@@ -13,8 +13,16 @@ from reportgen.spec import Rope, Rule
 STRENGTH_BANDS = ((0.1, "negligible"), (0.3, "weak"), (0.5, "moderate"), (1.01, "strong"))
 
 
+def printed_size(rho: float) -> float:
+    """|rho| rounded to the two decimals the report prints, so a word never contradicts its number
+    (-0.4979 is printed as -0.50 and must be read at 0.50)."""
+    return abs(float(f"{rho:.2f}"))
+
+
 def strength_word(rho: float) -> str:
-    size = abs(rho)
+    """Our word for Cohen's (1988) band of the printed value: negligible below small, then weak (small),
+    moderate (medium) and strong (large)."""
+    size = printed_size(rho)
     for bound, word in STRENGTH_BANDS:
         if size < bound:
             return word
@@ -123,8 +131,14 @@ def pair_paragraph(
     interval_name: str,
     p_positive: float,
     r2_median: float,
+    r2_lower: float = float("nan"),
+    r2_upper: float = float("nan"),
 ) -> str:
-    """The opening reading of one pair's result, in plain words."""
+    """The opening reading of one pair's result, in plain words.
+
+    ``r2_lower`` and ``r2_upper`` bound the interval of rho squared (the same kind and mass as rho's);
+    NaN (the default) leaves that interval out.
+    """
     dropped = (f" ({n_dropped} row{'s' if n_dropped != 1 else ''} with a missing value "
                "left out)" if n_dropped else "")
     strength = strength_word(median)
@@ -135,33 +149,76 @@ def pair_paragraph(
         f"{format_rho(lower)} to {format_rho(upper)}.",
     ]
     if lower > 0 or upper < 0:
-        parts.append(f"The interval lies wholly on the {'positive' if lower > 0 else 'negative'} side of zero: "
-                     f"a {strength} {direction} association by common benchmarks.")
+        parts.append(f"The interval lies wholly on the {'positive' if lower > 0 else 'negative'} side of zero. "
+                     f"Its median is a {strength} {direction} association on Cohen's (1988) benchmarks for the "
+                     "behavioural sciences (0.1, 0.3 and 0.5 mark small, medium and large, read here as weak, "
+                     "moderate and strong), a reading of the median alone; what is strong enough depends on the "
+                     "application.")
     else:
-        parts.append(f"The interval includes zero: the data are consistent with no linear association, "
-                     f"and equally with values from {describe(lower)} to {describe(upper)}.")
+        # A posterior is not flat over its interval: say that the values inside are not equally supported.
+        parts.append(f"The interval includes zero: the data leave room for no linear association, and also for "
+                     f"anything from {describe(lower)} to {describe(upper)}, though the posterior does not weigh "
+                     f"them equally: it is densest around its median ({format_rho(median)}) and thins out "
+                     "towards the interval's ends.")
     parts.append(f"The probability that the correlation is positive is {format_probability(p_positive)}.")
-    share = r2_median * 100
-    parts.append(f"A straight line in {x_label} would account for about {share:.0f}% of the variation "
-                 f"in {y_label} (posterior median of \u03c1\u00b2).")
+    share = _percent(r2_median)
+    share = share if share.startswith("under") else "about " + share
+    spread = (f"; {mass:.0%} {interval_name} from {_percent(r2_lower)} to {_percent(r2_upper)}"
+              if math.isfinite(r2_lower) and math.isfinite(r2_upper) else "")
+    parts.append(f"A straight line in {x_label} would account for {share} of the variance in {y_label} "
+                 f"(posterior median of \u03c1\u00b2{spread}).")
     return " ".join(parts)
+
+
+def _percent(share: float) -> str:
+    """A share of variance as a whole percentage; below 1% it says so rather than print 0%."""
+    percent = 100.0 * share
+    return "under 1%" if percent < 1.0 else f"{percent:.0f}%"
 
 
 def describe(rho: float) -> str:
     """A value of rho in words, e.g. "a moderate negative correlation (−0.42)"."""
-    if abs(rho) < 0.1:
+    if printed_size(rho) < 0.1:
         return f"a negligible correlation ({format_rho(rho)})"
     return f"a {strength_word(rho)} {direction_word(rho)} correlation ({format_rho(rho)})"
 
 
-def diagnostics_sentence(status: str, reasons: tuple[str, ...]) -> str:
+def diagnostics_sentence(status: str, reasons: tuple[str, ...], *,
+                         attempts: tuple[tuple[float, int], ...] = (), broken: tuple[str, ...] = ()) -> str:
+    """The convergence checks in words, with the remedy that fits what failed.
+
+    ``attempts`` are the sampling runs as (target acceptance, divergent transitions), first to last (the
+    draws are the last one's); more than one says the sampler was re-run after divergences. ``broken``
+    holds the codes of the broken checks (``Diagnosis.broken``); without them a failure gets the general
+    advice of more draws.
+    """
+    def transitions(count: int) -> str:
+        return "none" if count == 0 else f"{count} divergent transition{'s' if count != 1 else ''}"
+
+    retry = ""
+    if len(attempts) > 1:
+        (first, first_count), later = attempts[0], attempts[1:]
+        reruns = " and then at ".join(f"{target:g} ({transitions(count)})" for target, count in later)
+        retry = (f"After {transitions(first_count)} at target acceptance {first:g}, the sampler was re-run "
+                 f"at {reruns}; the numbers shown come from the run at {later[-1][0]:g}. ")
     if status == "pass":
-        return "The sampler converged: every convergence check passed its threshold."
+        return retry + "The sampler converged: every convergence check passed its threshold."
     joined = "; ".join(reasons)
     if status == "warn":
-        return f"The sampler converged, with a caution: {joined}."
-    return (f"The sampler did not meet the convergence thresholds ({joined}); "
-            "treat this pair's numbers as unreliable until it is re-run with more draws.")
+        return retry + f"The sampler converged, with a caution: {joined}."
+    mixing = [name for name, codes in (("R-hat", ("rhat",)), ("effective sample size", ("ess_bulk", "ess_tail")))
+              if any(code in broken for code in codes)]
+    if "divergences" not in broken:
+        return retry + (f"The sampler did not meet the convergence thresholds ({joined}); "
+                        "treat this pair's numbers as unreliable until it is re-run with more draws.")
+    final = f" even at target acceptance {attempts[-1][0]:g}" if attempts else ""
+    advice = ("Divergent transitions are not cured by more draws: the posterior has a region the sampler "
+              f"cannot explore at its step size{final}. The remedies are the exact engine for this pair "
+              "(engine = \"exact\", no sampling) or narrower priors on the SDs (a smaller priors.sds.scale).")
+    if mixing:
+        advice += f" For the {' and the '.join(mixing)}, on the other hand, more draws do help."
+    return retry + (f"The sampler did not meet the convergence thresholds ({joined}); treat this pair's "
+                    f"numbers as unreliable. {advice}")
 
 
 def prior_text_rho(a: float, b: float) -> str:
@@ -196,13 +253,26 @@ SUPERSCRIPT = str.maketrans("0123456789-.", "\u2070\u00b9\u00b2\u00b3\u2074\u207
 
 
 def format_bayes_factor(log_bf10: float) -> str:
-    """Plain below 1000 (and above 1/1000), else a power of ten with superscript digits; a dash when unknown."""
+    """A Bayes factor from its natural log; a dash when unknown.
+
+    Between 1/1000 and 1000 it is plain, to three significant figures with trailing zeros dropped
+    (1.85, 0.25, 123). Outside, two significant figures times a power of ten with a superscript exponent
+    and a true minus sign (4.5 x 10^11): mantissa and exponent come from the log, so values far beyond a
+    float's range (log BF10 in the thousands) print too.
+    """
     if not math.isfinite(log_bf10):
         return "\u2014"
     log10 = log_bf10 / math.log(10.0)
     if abs(log10) < 3:
-        return f"{math.exp(log_bf10):.3g}"
-    return "10" + f"{round(log10):d}".translate(SUPERSCRIPT)
+        plain = f"{math.exp(log_bf10):.3g}"
+        if "e" not in plain:  # 999.7 rounds to 1e+03: print it like the values beyond 1000
+            return plain
+    exponent = math.floor(log10)
+    mantissa = 10.0 ** (log10 - exponent)
+    if round(mantissa, 1) >= 10.0:  # 9.96 x 10^4 is 1.0 x 10^5
+        exponent += 1
+        mantissa /= 10.0
+    return f"{mantissa:.1f} \u00d7 10" + f"{exponent:d}".translate(SUPERSCRIPT)
 
 
 def signed(value: float, digits: int = 4) -> str:
@@ -210,14 +280,25 @@ def signed(value: float, digits: int = 4) -> str:
     return f"{value:+.{digits}f}".replace("-", "\u2212")
 
 
-def evidence_sentence(log_bf10: float, model: str = "normal") -> str:
-    """Plain reading of BF10 (a correlation under the spec's prior against rho = 0)."""
+def rho_prior_name(a: float, b: float) -> str:
+    """The prior on rho by name: uniform, or the stretched Beta(a, b) on (-1, 1)."""
+    if a == 1.0 and b == 1.0:
+        return "the uniform prior"
+    return f"the stretched Beta({a:g}, {b:g}) prior"
+
+
+def evidence_sentence(log_bf10: float, model: str = "normal", *, rho_a: float = 1.0, rho_b: float = 1.0) -> str:
+    """Plain reading of BF10: rho = 0 against the alternative that spreads rho as the prior with shapes
+    ``rho_a``, ``rho_b`` does (uniform by default). The number depends on that prior, so it is named."""
     if not math.isfinite(log_bf10):
         return ("No exact Bayes factor is available for the robust (Student-t) model: the exact one belongs to "
                 "the normal model.")
     size = abs(log_bf10)
-    favoured = "a correlation" if log_bf10 > 0 else "no correlation (\u03c1 = 0)"
-    other = "no correlation" if log_bf10 > 0 else "a correlation"
+    parameter = "Kendall's \u03c4" if model == "rank" else "\u03c1"
+    alternative = (f"the alternative that spreads {parameter} as {rho_prior_name(rho_a, rho_b)} does over "
+                   "(\u22121, 1)")
+    null = f"no correlation ({parameter} = 0)"
+    favoured, other = (alternative, null) if log_bf10 > 0 else (null, alternative)
     grade = "extreme"
     for bound, word in EVIDENCE_GRADES:
         if size < math.log(bound):
@@ -232,13 +313,13 @@ def evidence_sentence(log_bf10: float, model: str = "normal") -> str:
 
 def crosscheck_sentence(*, applies: bool, reference_priors: bool, mean_gap: float, mean_allowed: float,
                         rule_name: str | None, rule_gap: float, rule_allowed: float, within: bool) -> str:
+    """The sampler against the exact posterior under the same (the spec's) priors: any gap beyond the
+    allowance, which is Monte Carlo error alone, is a computational problem."""
     if not applies:
-        return ("The exact reference is not compared here: this pair's priors on the means or SDs are "
-                "informative, so the two answers are not expected to agree.")
-    basis = ("The spec uses the reference priors, so the two should agree within Monte Carlo error"
-             if reference_priors else
-             "The spec's vague priors differ slightly from the reference priors, so the allowance adds the "
-             "effect of shifting the posterior by a quarter of its SD to the Monte Carlo error")
+        return ("The sampler is not compared with an exact posterior for this pair: none was computed under "
+                "its priors.")
+    basis = ("The exact posterior uses the spec's own priors" + (" (Jeffreys' here)" if reference_priors else "")
+             + ", so the two should differ by Monte Carlo error alone")
     parts = [f"The sampler's posterior mean of \u03c1 differs from the exact reference by {signed(mean_gap)} "
              f"(allowed {mean_allowed:.4f})"]
     if rule_name is not None:
@@ -247,6 +328,77 @@ def crosscheck_sentence(*, applies: bool, reference_priors: bool, mean_gap: floa
     verdict = "Both are within the allowance." if within else (
         "This is beyond the allowance: the sampler's answer for this pair should be checked.")
     return "; ".join(parts) + f". {basis}. {verdict}"
+
+
+# Agreement of the Savage-Dickey estimate with the quadrature value: within this many of its own relative
+# Monte Carlo standard errors. An estimate's error is roughly normal, so 3 standard errors cover about 99.7%
+# of honest runs (common practice); a wider gap points to the sampler, not to chance.
+SAVAGE_DICKEY_MCSE_MULTIPLE = 3.0
+# Below this relative change the nuisance priors are said to leave BF10 unchanged (the printed factor
+# would read 1 at three significant figures).
+UNCHANGED_FACTOR = 1.005
+
+
+def _percent_error(relative: float) -> str:
+    percent = 100.0 * relative
+    return f"{percent:.0f}%" if percent >= 10 else f"{percent:.2g}%"
+
+
+def savage_dickey_sentence(*, savage_dickey_bf10: float, relative_mcse: float, reference_log_bf10: float,
+                           jeffreys_log_bf10: float) -> str:
+    """What the Savage-Dickey ratio of the draws (Dickey 1971) estimates, and how it compares.
+
+    ``savage_dickey_bf10``: the ratio itself (BF10, not its log), an estimate of the Bayes factor under the
+    spec's own priors; ``relative_mcse``: its Monte Carlo standard error over the estimate (0.08 for
+    +-8%); ``reference_log_bf10``: the log Bayes factor under the spec's priors by quadrature;
+    ``jeffreys_log_bf10``: the exact log Bayes factor under Jeffreys' priors for the means and SDs. Any of
+    them may be NaN (not available): the sentence then says less.
+    """
+    estimate = math.isfinite(savage_dickey_bf10) and savage_dickey_bf10 > 0
+    error = math.isfinite(relative_mcse) and relative_mcse > 0
+    reference = math.isfinite(reference_log_bf10)
+    jeffreys = math.isfinite(jeffreys_log_bf10)
+    parts = []
+    if estimate:
+        log_estimate = math.log(savage_dickey_bf10)
+        text = ("The Savage\u2013Dickey density ratio of the draws (Dickey 1971) estimates BF\u2081\u2080 under "
+                f"the spec's own priors at {format_bayes_factor(log_estimate)}")
+        parts.append(text + (f", with a Monte Carlo uncertainty of about \u00b1{_percent_error(relative_mcse)}."
+                             if error else "."))
+        if reference:
+            text = f"By quadrature under the same priors it is {format_bayes_factor(reference_log_bf10)}"
+            if error:
+                # relative gap |exact - estimate| / estimate, from the logs so that huge factors cannot overflow
+                shift = reference_log_bf10 - log_estimate
+                gap = abs(math.expm1(shift)) if abs(shift) < 50 else math.inf
+                if gap <= SAVAGE_DICKEY_MCSE_MULTIPLE * relative_mcse:
+                    text += ": the two agree within three times the estimate's Monte Carlo uncertainty."
+                else:
+                    text += (": the two differ by more than three times the estimate's Monte Carlo uncertainty, "
+                             "so the sampler's answer for this pair should be checked.")
+            else:
+                text += "; without the estimate's Monte Carlo uncertainty their agreement cannot be judged."
+            parts.append(text)
+    else:
+        parts.append("The Savage\u2013Dickey density ratio cannot be estimated from the draws for this pair "
+                     "(it needs posterior mass near \u03c1 = 0).")
+        if reference:
+            parts.append(f"By quadrature under the spec's own priors BF\u2081\u2080 is "
+                         f"{format_bayes_factor(reference_log_bf10)}.")
+    if jeffreys and reference:
+        shift = reference_log_bf10 - jeffreys_log_bf10
+        if abs(shift) < math.log(UNCHANGED_FACTOR):
+            effect = "leave it unchanged to within 0.5%"
+        else:
+            effect = f"{'raise' if shift > 0 else 'lower'} it by a factor of {format_bayes_factor(abs(shift))}"
+        parts.append(f"Under Jeffreys' priors for the means and SDs the exact BF\u2081\u2080 is "
+                     f"{format_bayes_factor(jeffreys_log_bf10)}, so the spec's priors on the means and SDs "
+                     f"{effect}.")
+    elif jeffreys and estimate:
+        parts.append(f"Under Jeffreys' priors for the means and SDs the exact BF\u2081\u2080 is "
+                     f"{format_bayes_factor(jeffreys_log_bf10)}; the difference from the estimate reflects the "
+                     "spec's priors on the means and SDs as well as Monte Carlo error.")
+    return " ".join(parts)
 
 
 def exact_engine_sentence() -> str:

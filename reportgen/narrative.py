@@ -4,16 +4,31 @@ run record in readable form. Pair-level sentences live in ``interpret``.
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 from reportgen import interpret
-from reportgen.crosscheck import MCSE_MULTIPLE, VAGUE_PRIOR_ALLOWANCE_SD
+from reportgen.crosscheck import MCSE_MULTIPLE
 from reportgen.results import RunResults
-from reportgen.spec import Priors, Spec
+from reportgen.spec import MeanPrior, Priors, SdPrior, Spec
+
+# A prior on a mean or SD is called wide when its scale is at least WIDE_SCALE_MULTIPLE sample SDs and, for
+# a mean, the sample mean lies within WIDE_CENTRE_SCALES of its scales from the prior's centre. Why: under
+# the normal approximation a prior whose log density has slope g at the estimate moves a posterior of
+# variance v by about v * g (common practice). For a mean (posterior SD s/sqrt(n)) that slope is at most
+# |centre - mean| / scale^2 <= 1/scale <= 1/(5 s), a shift of at most 1/(5 sqrt(n)) posterior SDs: a tenth
+# at n = 4, less with more rows. For an SD under a half-normal or half-t prior of scale c >= 5 s the shift is
+# smaller still (about s^2 / c^2 / sqrt(2 n) posterior SDs). So the data dominate these priors.
+WIDE_SCALE_MULTIPLE = 5.0
+WIDE_CENTRE_SCALES = 1.0
+
+# The priors the exact engine integrates the means and SDs out under, whatever the spec says (Jeffreys 1961).
+EXACT_MEANS = MeanPrior(family="flat")
+EXACT_SDS = SdPrior(family="jeffreys")
 
 
-def status_banner(total: int, failed: list[str], warned: list[str]) -> dict[str, str]:
-    """The line on page one that says whether every fit can be relied on."""
+def status_banner(total: int, failed: list[str], warned: list[str], *, engine: str = "mcmc") -> dict[str, str]:
+    """The line on page one that says whether every fit can be relied on; ``engine`` is the spec's."""
     if failed:
         names = "; ".join(failed)
         return {"level": "fail", "text": (
@@ -24,12 +39,25 @@ def status_banner(total: int, failed: list[str], warned: list[str]) -> dict[str,
         return {"level": "warn", "text": (
             f"All {total} fits converged; {len(warned)} carr{'ies' if len(warned) == 1 else 'y'} a caution "
             f"({names}): see the diagnostics of {'that pair' if len(warned) == 1 else 'those pairs'}.")}
+    if engine == "exact":
+        return {"level": "pass", "text": (
+            f"All {total} pair{'s' if total != 1 else ''} were computed exactly by quadrature (the exact engine), "
+            "so there is no iterative fit to check.")}
     return {"level": "pass", "text": (
         f"All {total} fit{'s' if total != 1 else ''} passed every convergence check "
         "(R-hat, effective sample size, divergences, E-BFMI).")}
 
 
-def prior_lines(priors: Priors) -> list[str]:
+def used_priors(priors: Priors, engine: str) -> Priors:
+    """The priors a fit actually uses: the exact engine keeps the prior on rho and replaces the others."""
+    if engine == "exact":
+        return Priors(rho=priors.rho, means=EXACT_MEANS, sds=EXACT_SDS)
+    return priors
+
+
+def prior_lines(priors: Priors, engine: str = "mcmc") -> list[str]:
+    """The priors as used, one line each for rho, the means and the SDs."""
+    priors = used_priors(priors, engine)
     return [
         interpret.prior_text_rho(*priors.rho.shapes),
         interpret.prior_text_means(priors.means.units, priors.means.location, priors.means.scale,
@@ -38,24 +66,126 @@ def prior_lines(priors: Priors) -> list[str]:
     ]
 
 
-def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
+def _mean_prior_used(prior: MeanPrior, mean: float, sd: float) -> tuple[str, bool]:
+    """The prior on one mean in the data's units, and whether it is wide for this variable."""
+    if prior.family == "flat":
+        return "flat", True
+    centre = mean if prior.units == "scaled" else prior.location
+    scale = prior.scale * sd if prior.units == "scaled" else prior.scale
+    wide = scale >= WIDE_SCALE_MULTIPLE * sd and abs(mean - centre) <= WIDE_CENTRE_SCALES * scale
+    return f"Normal({interpret.format_number(centre)}, {interpret.format_number(scale)})", wide
+
+
+def _sd_prior_used(prior: SdPrior, sd: float) -> tuple[str, bool]:
+    """The prior on one SD in the data's units, and whether it is wide for this variable."""
+    if prior.family == "jeffreys":
+        return "1/\u03c3", True
+    scale = prior.scale * sd if prior.units == "scaled" else prior.scale
+    wide = scale >= WIDE_SCALE_MULTIPLE * sd
+    if prior.family == "half_student_t":
+        return f"Half-Student-t(\u03bd = {prior.nu:g}, {interpret.format_number(scale)})", wide
+    return f"Half-normal({interpret.format_number(scale)})", wide
+
+
+def prior_scale_rows(spec: Spec, results: RunResults) -> list[dict[str, str]]:
+    """Each variable's sample mean and SD beside the priors on its mean and SD in the data's units.
+
+    One row per variable; a variable whose pairs differ (other complete rows, or a pair's own priors) gets
+    one row per distinct version, labelled with its pairs. Rank-model pairs have no means or SDs to model.
+    """
+    if spec.document.engine == "exact":
+        return []
+    priors_of = {pair.key: pair.priors for pair in spec.pairs}
+    found: dict[tuple[str, ...], list[str]] = {}
+    for result in results.pairs:
+        if result.model == "rank" or result.key not in priors_of:
+            continue
+        priors = priors_of[result.key]
+        stats = dict(result.sufficient)
+        n = stats["n"]
+        for label, mean, squares in ((result.x_label, stats["mean_x"], stats["sxx"]),
+                                     (result.y_label, stats["mean_y"], stats["syy"])):
+            sd = math.sqrt(squares / (n - 1))  # the n - 1 sample SD that scaled priors use
+            mean_text, mean_wide = _mean_prior_used(priors.means, mean, sd)
+            sd_text, sd_wide = _sd_prior_used(priors.sds, sd)
+            narrow = [name for name, wide in (("mean", mean_wide), ("SD", sd_wide)) if not wide]
+            row = (label, interpret.format_number(mean), interpret.format_number(sd), mean_text, sd_text,
+                   "yes" if not narrow else f"no ({' and '.join(narrow)})")
+            found.setdefault(row, []).append(result.title)
+    versions: dict[str, int] = {}
+    for row in found:
+        versions[row[0]] = versions.get(row[0], 0) + 1
+    rows = []
+    for (label, mean, sd, mean_prior, sd_prior, wide), titles in found.items():
+        if versions[label] > 1:  # say which pairs this version belongs to
+            shown = ", ".join(titles[:3]) + (f" and {len(titles) - 3} more" if len(titles) > 3 else "")
+            label = f"{label} (in {shown})"
+        rows.append({"variable": label, "mean": mean, "sd": sd, "mean_prior": mean_prior, "sd_prior": sd_prior,
+                     "wide": wide})
+    return rows
+
+
+def priors_note(spec: Spec, rows: list[dict[str, str]]) -> str:
+    """How the priors on the means and SDs were used, in words, beside the table of their scales."""
     document = spec.document
+    priors = document.priors
+    if document.engine == "exact":
+        replaced = "; ".join(prior_lines(priors)[1:])
+        return ("The exact engine uses the spec's prior on \u03c1 as stated but replaces the spec's priors on "
+                f"the means and SDs ({replaced}) by a flat prior on each mean and a 1/\u03c3 prior on each SD "
+                "(Jeffreys' priors): only under those does the posterior of \u03c1 reduce to a one-dimensional "
+                "integral, which depends on the data through n and the sample correlation alone and is "
+                "computed by quadrature. Results under the spec's own priors on the means and SDs need "
+                "engine = \u201cmcmc\u201d.")
+    scaled = any(p.priors.means.units == "scaled" and p.priors.means.family != "flat"
+                 or p.priors.sds.units == "scaled" and p.priors.sds.family != "jeffreys" for p in spec.pairs)
+    parts = []
+    if scaled:
+        parts.append("Priors marked \u201csample mean\u201d or \u201csample SD\u201d are scaled to each pair's "
+                     "data, so they are set after seeing the data (common practice for weakly informative "
+                     "defaults).")
+    parts.append("The table gives each prior on a mean or SD in the data's units, beside the sample mean and SD.")
+    parts.append(f"A prior counts as wide here when its scale is at least {WIDE_SCALE_MULTIPLE:g} times the "
+                 "sample SD and, for a mean, its centre lies within one scale of the sample mean: it then "
+                 "moves the posterior of that mean or SD by at most about a tenth of its posterior SD (at "
+                 "n = 4, less with more rows), so the data dominate.")
+    narrow = list(dict.fromkeys(row["variable"] for row in rows if row["wide"] != "yes"))
+    if rows and not narrow:
+        parts.append("By that rule every prior here is wide.")
+    elif narrow:
+        parts.append(f"By that rule the priors are not wide for {interpret.joined(narrow)}: there they inform "
+                     "the estimates of the means or SDs, and through them can move \u03c1.")
+    parts.append("All priors are used as stated in the specification.")
+    if any(p.model == "rank" for p in spec.pairs):
+        parts.append("The rank model uses only the prior on \u03c1, carried over to Kendall's \u03c4.")
+    return " ".join(parts)
+
+
+def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
+    """The methods section's context.
+
+    ``diagram_priors`` holds the prior texts as used (the exact engine's replace the spec's on the means
+    and SDs), for the model diagram.
+    """
+    document = spec.document
+    engine = document.engine
     sampler = document.sampler
     thresholds = document.diagnostics
+    used = prior_lines(document.priors, engine)
     overrides = []
     for pair in spec.pairs:
-        if pair.priors != document.priors:
-            overrides.append({"pair": pair.key, "lines": prior_lines(pair.priors)})
-    scaled = document.priors.means.units == "scaled" or document.priors.sds.units == "scaled"
+        lines = prior_lines(pair.priors, engine)
+        if lines != used:
+            overrides.append({"pair": pair.key, "lines": lines})
+    rows = prior_scale_rows(spec, results)
     return {
-        "priors": prior_lines(document.priors),
+        "priors": used,
+        "diagram_priors": {"rho_prior": used[0], "mean_prior": used[1], "sd_prior": used[2]},
+        "rho_prior_name": interpret.rho_prior_name(*document.priors.rho.shapes),
         "overrides": overrides,
-        "scaled_note": (
-            "Priors marked \u201csample mean\u201d or \u201csample SD\u201d are scaled to each pair's "
-            "data: they are wide relative to the data's spread, so they let the data dominate, "
-            "but they are set after seeing the data (common practice for weakly informative "
-            "defaults). Priors in the data's units are used exactly as stated."
-        ) if scaled else "All priors are stated in the data's units and were fixed before the data were seen.",
+        "scaled_note": priors_note(spec, rows),
+        "prior_scales": rows,
+        "wide_multiple": f"{WIDE_SCALE_MULTIPLE:g}",
         "sampler": [
             ("Algorithm", "No-U-Turn Sampler (Hoffman & Gelman 2014), adaptive step size and mass matrix"),
             ("Chains", f"{sampler.chains}"),
@@ -82,7 +212,7 @@ def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
         "checks": model_check_lines(spec),
         "engine": document.engine,
         "mcse_multiple": f"{MCSE_MULTIPLE:g}",
-        "prior_allowance": f"{VAGUE_PRIOR_ALLOWANCE_SD:g}",
+        "savage_dickey_multiple": f"{interpret.SAVAGE_DICKEY_MCSE_MULTIPLE:g}",
         "probability_note": (
             "Probabilities come from the exact posterior by quadrature; values beyond 0.999 or below 0.001 "
             "are shown as such." if document.engine == "exact" else
@@ -104,7 +234,9 @@ def model_check_lines(spec: Spec) -> list[tuple[str, str]]:
         ("Coarse values", f"at most {checks.discrete_max_distinct} distinct values, or at least "
                           f"{checks.discrete_tied_share:.0%} of all pairs of rows tied"),
         ("Poorly reproduced", f"posterior predictive tail probability below {checks.predictive_level:g}"),
-        ("Nuisance prior widths tried", ", ".join(f"\u00d7{w:g}" for w in widths) or "none"),
+        ("Nuisance prior widths tried",
+         "none: the exact engine's flat and 1/\u03c3 priors have no width to change"
+         if spec.document.engine == "exact" else ", ".join(f"\u00d7{w:g}" for w in widths) or "none"),
     ]
 
 
@@ -154,8 +286,10 @@ def record_rows(reproducible: dict[str, Any]) -> list[tuple[str, str]]:
         ("Data SHA-256", reproducible["data_sha256"]),
         ("Data rows", f"{reproducible['data_rows']:,}"),
         ("Engine", reproducible["engine"]),
-        ("Sampler", f"{sampler['chains']} chains \u00d7 {sampler['draws']:,} draws after {sampler['tune']:,} "
-                    f"tuning; target acceptance {sampler['target_accept']}"),
+        ("Sampler", "not used: the exact engine computes each posterior by quadrature"
+         if str(reproducible["engine"]).startswith("exact") else
+         f"{sampler['chains']} chains \u00d7 {sampler['draws']:,} draws after {sampler['tune']:,} "
+         f"tuning; target acceptance {sampler['target_accept']}"),
         ("Command-line overrides", ", ".join(f"{k} = {v}" for k, v in reproducible["command_line_overrides"].items())
          or "none (the spec file below was run as written)"),
         ("Master seed", str(reproducible["master_seed"])),

@@ -243,14 +243,14 @@ def build_context(
         rope=(document.rope.lower, document.rope.upper),
         mass=mass,
     )
-    priors = document.priors
+    methods = narrative.methods_context(spec, results)
     failed = results.failed
     warned = [p for p in results.pairs if p.status == "warn"]
     titles = {result.key: (result.title, p["anchor"]) for result, p in zip(results.pairs, pairs, strict=True)}
     return {
         "meta": document_meta(spec),
         "banner": narrative.status_banner(len(results.pairs), [p.title for p in failed],
-                                          [p.title for p in warned]),
+                                          [p.title for p in warned], engine=document.engine),
         "status": results.status,
         "mass": f"{mass:.0%}",
         "interval_name": "highest-density interval" if document.summary.interval == "hdi"
@@ -279,13 +279,9 @@ def build_context(
         "forest": svg_data_uri(forest),
         "matrices": matrix_figures(results, spec),
         "pairs": pairs,
-        "methods": narrative.methods_context(spec, results),
+        "methods": methods,
         "diagram": svg_data_uri(figures.model_diagram(
-            rho_prior=interpret.prior_text_rho(*priors.rho.shapes),
-            mean_prior=interpret.prior_text_means(priors.means.units, priors.means.location,
-                                                  priors.means.scale, priors.means.family),
-            sd_prior=interpret.prior_text_sds(priors.sds.family, priors.sds.units, priors.sds.scale,
-                                              priors.sds.nu),
+            **methods["diagram_priors"],
             likelihood="(x\u1d62, y\u1d62) ~ bivariate normal",
             observed="n observed pairs (x\u1d62, y\u1d62)",
         )),

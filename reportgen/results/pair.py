@@ -27,6 +27,13 @@ PARAMETER_BOUNDS = {"rho": (-1.0, 1.0), "tau": (-1.0, 1.0), "sigma_x": (0.0, Non
 
 @dataclass(frozen=True)
 class ParameterSummary:
+    """One parameter's numbers (absolute) and its density curve (relative to ``offset``).
+
+    ``grid + offset`` are the parameter's values; ``offset`` is 0 except for an unbounded parameter
+    whose draws sit far from zero compared with their spread (a mean near 1e12 known to 0.01), where
+    an absolute grid would collapse onto a few floating-point values.
+    """
+
     name: str
     mean: float
     sd: float
@@ -35,6 +42,7 @@ class ParameterSummary:
     upper: float
     grid: np.ndarray
     density: np.ndarray
+    offset: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -116,6 +124,7 @@ class PairResult:
     sufficient: tuple[tuple[str, float], ...]  # n, means, centred sums: every number derives from these
     interval_excludes_zero: bool
     model: str = "normal"  # the model these numbers come from: "normal", "student_t" or "rank"
+    r2_interval: tuple[float, float] = (float("nan"), float("nan"))  # rho^2, same kind and mass as rho's
     # Filled in by results.outcome once every fit of the pair is in: what the checks found, how the
     # verdicts move under other priors, and which model leads and why.
     checks: ModelChecks | None = None
@@ -150,9 +159,18 @@ class RunResults:
 
 def summarise_parameter(name: str, draws: np.ndarray, mass: float, kind: str) -> ParameterSummary:
     lower_bound, upper_bound = PARAMETER_BOUNDS.get(name, (None, None))
-    grid, density = summaries.bounded_density(draws, lower_bound, upper_bound)
-    lower, upper = summaries.interval(draws, mass, kind)
     values = np.ravel(draws)
+    offset = 0.0
+    centre, spread = float(np.median(values)), float(np.ptp(values))
+    # An unbounded parameter whose draws share four or more leading digits (the point where tick labels
+    # stop being readable; matplotlib's own offset threshold, common practice) is tabulated relative to a
+    # round number near its median: one power of ten above the draws' range, so the axis reads e.g.
+    # "mu - 1,000,000,000" with small ticks. Bounded parameters keep absolute grids: their bounds are.
+    if lower_bound is None and upper_bound is None and spread > 0.0 and abs(centre) > 1e3 * spread:
+        decimals = -int(np.ceil(np.log10(spread)))
+        offset = float(round(centre, decimals))
+    grid, density = summaries.bounded_density(draws, lower_bound, upper_bound, offset=offset)
+    lower, upper = summaries.interval(draws, mass, kind)
     return ParameterSummary(
         name=name,
         mean=float(np.mean(values)),
@@ -162,6 +180,7 @@ def summarise_parameter(name: str, draws: np.ndarray, mass: float, kind: str) ->
         upper=upper,
         grid=grid,
         density=density,
+        offset=offset,
     )
 
 
@@ -220,12 +239,13 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
         hdi=summaries.hdi_interval(rho_draws, mass),
         p_positive=float(np.mean(rho_draws > 0)),
         r2_median=float(np.median(rho_draws ** 2)),
+        r2_interval=summaries.interval(rho_draws ** 2, mass, kind),
         rope_probability=summaries.rope_probability(rho_draws, document.rope),
         rules=_rule_outcomes(spec, probabilities, mcses), diagnosis=diagnosis, check=check,
         seed=fit.seed, seconds=fit.seconds,
         covariance=_posterior_covariance(fit.draws),
         mean_vector=(float(np.mean(fit.draws["mu_x"])), float(np.mean(fit.draws["mu_y"]))),
-        model=fit.model,
+        model=fit.model, attempts=tuple((a.target_accept, a.divergences) for a in fit.attempts),
     )
 
 
@@ -289,8 +309,13 @@ def plotting_grid(grid: np.ndarray, density: np.ndarray, floor: float = 1e-12) -
     """The part of a quadrature grid worth drawing: strictly increasing, where the density is not negligible.
 
     A grid laid out in atanh(rho) maps its far tails onto rho = -1 or 1 many times over (in floating point).
+    Points that rounded to exactly -1 or 1 cannot be placed on any axis of rho, so they are left out
+    before the floor is taken: otherwise, for a posterior pressed against an end, their huge densities
+    would set the floor and leave nothing that can be drawn.
     """
-    keep = np.isfinite(grid) & np.isfinite(density) & (density >= floor * np.max(density))
+    drawable = np.isfinite(grid) & (np.abs(grid) < 1.0) & np.isfinite(density)
+    peak = float(np.max(density[drawable], initial=0.0))
+    keep = drawable & (density >= floor * peak)
     grid, density = grid[keep], density[keep]
     increasing = np.concatenate([[True], np.diff(grid) > 0])
     return grid[increasing], density[increasing]
@@ -317,17 +342,13 @@ def _result_from_posterior(
         nan = float("nan")
         check = dataclasses.replace(check, exact_mean=nan, exact_sd=nan, exact_lower=nan, exact_upper=nan,
                                     mean_gap=nan)
-    # median of rho^2: P(rho^2 <= t) = cdf(sqrt t) - cdf(-sqrt t), solved by bisection
-    low, high = 0.0, 1.0
-    for _ in range(60):
-        mid = 0.5 * (low + high)
-        share = float(posterior.cdf(np.sqrt(mid))) - float(posterior.cdf(-np.sqrt(mid)))
-        low, high = (mid, high) if share < 0.5 else (low, mid)
+    r2_median = float(_squared_quantiles(posterior, np.array([0.5]))[0])
+    r2_interval = _squared_interval(posterior, mass, document.summary.interval)
     sx, sy = data.stats.sd_x, data.stats.sd_y
     covariance = np.array([[sx * sx, rho.mean * sx * sy], [rho.mean * sx * sy, sy * sy]])
     return _assemble(
         spec, data, engine="exact", parameters={"rho": rho, **extra}, hdi=(hdi[0], hdi[1]),
-        p_positive=float(posterior.prob_above(0.0)), r2_median=0.5 * (low + high),
+        p_positive=float(posterior.prob_above(0.0)), r2_median=r2_median, r2_interval=r2_interval,
         rope_probability=float(posterior.prob_between(document.rope.lower, document.rope.upper)),
         rules=_rule_outcomes(spec, probabilities), diagnosis=diagnosis, check=check,
         seed=seed, seconds=time.perf_counter() - started, covariance=covariance,
@@ -335,11 +356,39 @@ def _result_from_posterior(
     )
 
 
+def _squared_quantiles(posterior: Any, probabilities: np.ndarray) -> np.ndarray:
+    """Quantiles of rho^2 from a posterior of rho: P(rho^2 <= t) = cdf(sqrt t) - cdf(-sqrt t), by bisection
+    on all probabilities at once."""
+    low, high = np.zeros_like(probabilities), np.ones_like(probabilities)
+    for _ in range(60):
+        mid = 0.5 * (low + high)
+        root = np.sqrt(mid)
+        share = np.asarray(posterior.cdf(root), dtype=float) - np.asarray(posterior.cdf(-root), dtype=float)
+        below = share < probabilities
+        low, high = np.where(below, mid, low), np.where(below, high, mid)
+    return 0.5 * (low + high)
+
+
+def _squared_interval(posterior: Any, mass: float, kind: str) -> tuple[float, float]:
+    """The interval of rho^2 of the report's kind: equal-tailed, or the shortest of the intervals holding
+    ``mass`` between two quantiles (the highest-density interval of a unimodal density, to 1/400 in mass)."""
+    if kind != "hdi":
+        lower, upper = _squared_quantiles(posterior, np.array([(1 - mass) / 2, (1 + mass) / 2]))
+        return float(lower), float(upper)
+    starts = np.linspace(0.0, 1.0 - mass, 401)
+    ends = _squared_quantiles(posterior, np.concatenate([starts, starts + mass]))
+    lowers, uppers = ends[:starts.size], ends[starts.size:]
+    best = int(np.argmin(uppers - lowers))
+    return float(lowers[best]), float(uppers[best])
+
+
 def _assemble(
     spec: Spec, data: PairData, *, engine: str, parameters: dict[str, ParameterSummary],
-    hdi: tuple[float, float], p_positive: float, r2_median: float, rope_probability: float,
+    hdi: tuple[float, float], p_positive: float, r2_median: float, r2_interval: tuple[float, float],
+    rope_probability: float,
     rules: tuple[RuleOutcome, ...], diagnosis: Diagnosis, check: CrossCheck, seed: int | None, seconds: float,
     covariance: np.ndarray, mean_vector: tuple[float, float], model: str = "normal",
+    attempts: tuple[tuple[float, int], ...] = (),
 ) -> PairResult:
     document = spec.document
     mass = document.summary.credible_mass
@@ -364,14 +413,16 @@ def _assemble(
         diagnostics_sentence = "No sampler was run: the exact engine computes the posterior by quadrature."
     elif model != "normal":
         check_sentence = interpret.no_reference_sentence()
-        diagnostics_sentence = interpret.diagnostics_sentence(diagnosis.status, diagnosis.reasons)
+        diagnostics_sentence = interpret.diagnostics_sentence(diagnosis.status, diagnosis.reasons, attempts=attempts,
+                                                            broken=diagnosis.broken)
     else:
         check_sentence = interpret.crosscheck_sentence(
             applies=check.applies, reference_priors=check.reference_priors, mean_gap=check.mean_gap,
             mean_allowed=check.mean_allowed, rule_name=largest.name if largest else None,
             rule_gap=(largest.sampled - largest.exact) if largest else 0.0,
             rule_allowed=largest.allowed if largest else 0.0, within=check.within_error)
-        diagnostics_sentence = interpret.diagnostics_sentence(diagnosis.status, diagnosis.reasons)
+        diagnostics_sentence = interpret.diagnostics_sentence(diagnosis.status, diagnosis.reasons, attempts=attempts,
+                                                            broken=diagnosis.broken)
     return PairResult(
         key=pair.key, x=pair.x, y=pair.y, title=pair.label or f"{x_label} and {y_label}",
         x_label=x_label, y_label=y_label,
@@ -386,14 +437,15 @@ def _assemble(
             x_label=x_label, y_label=y_label, n=data.stats.n, n_dropped=data.n_dropped,
             median=rho.median, lower=rho.lower, upper=rho.upper, mass=mass,
             interval_name=interval_name, p_positive=p_positive, r2_median=r2_median,
+            r2_lower=r2_interval[0], r2_upper=r2_interval[1],
         ),
         diagnostics_sentence=diagnostics_sentence,
         prior_grid=prior_grid, prior_density=np.exp(exact.log_stretched_beta_pdf(prior_grid, a, b)),
         covariance=covariance, mean_vector=mean_vector, crosscheck=check,
-        evidence_sentence=interpret.evidence_sentence(check.log_bf10, model),
+        evidence_sentence=interpret.evidence_sentence(check.log_bf10, model, rho_a=a, rho_b=b),
         crosscheck_sentence=check_sentence, engine=engine,
         sufficient=tuple((k, float(getattr(data.stats, k))) for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")),
-        interval_excludes_zero=rho.lower > 0 or rho.upper < 0, model=model,
+        interval_excludes_zero=rho.lower > 0 or rho.upper < 0, model=model, r2_interval=r2_interval,
     )
 
 
