@@ -46,14 +46,18 @@ from reportgen.io.excel import SheetProblem, read_excel
 from reportgen.io.parquet import read_parquet
 from reportgen.spec import PairSpec, Spec
 
-__all__ = ["MIN_COMPLETE_ROWS", "PERFECT_CORRELATION", "PairData", "ParsedColumn", "SheetProblem", "SufficientStats",
-           "Table", "file_sha256", "load_pairs", "load_table", "pair_data", "sufficient_stats"]
+__all__ = ["MIN_COMPLETE_ROWS", "PERFECT_CORRELATION", "PERFECT_CORRELATION_COMPLEMENT", "PairData", "ParsedColumn",
+           "SheetProblem", "SufficientStats", "Table", "file_sha256", "load_pairs", "load_table", "pair_data",
+           "sufficient_stats"]
 
 MIN_COMPLETE_ROWS = 4
 EXCEL_SUFFIXES = {".xlsx", ".xlsm", ".xls"}
 PARQUET_SUFFIXES = {".parquet", ".pq"}
-# |r| this close to 1 means one column is an exact linear function of the other.
-PERFECT_CORRELATION = 1.0 - 1e-12
+# 1 - |r| this small means one column is an exact linear function of the other. The test reads the
+# complement computed from the residuals (SufficientStats.one_minus_abs_r), not the rounded r; the
+# exact engine honours every complement down to exact.MIN_ONE_MINUS_ABS_R, far below this bound.
+PERFECT_CORRELATION_COMPLEMENT = 1e-12
+PERFECT_CORRELATION = 1.0 - PERFECT_CORRELATION_COMPLEMENT  # the same bound on |r|
 DECIMAL_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d+)+$|^[+-]?\d+,\d+$")
 
 
@@ -67,6 +71,9 @@ class SufficientStats:
     sxx: float  # sum of (x - mean_x)^2
     syy: float
     sxy: float  # sum of (x - mean_x)(y - mean_y)
+    # sum of squared residuals of y on x, sum (dy - (sxy/sxx) dx)^2, so that 1 - r^2 = rss / syy keeps its
+    # digits when |r| is within rounding of 1; None when unknown (statistics built without the rows)
+    rss: float | None = None
 
     @property
     def sd_x(self) -> float:
@@ -79,6 +86,15 @@ class SufficientStats:
     @property
     def sample_r(self) -> float:
         return float(self.sxy / np.sqrt(self.sxx * self.syy))
+
+    @property
+    def one_minus_abs_r(self) -> float:
+        """``1 - |r|`` without the cancellation of forming it from r: ``(1 - r^2) / (1 + |r|)`` with
+        ``1 - r^2 = rss / syy``; ``1 - |r|`` itself when the residual sum is unknown."""
+        abs_r = abs(self.sample_r)
+        if self.rss is None:
+            return 1.0 - abs_r
+        return float(self.rss / self.syy / (1.0 + abs_r))
 
 
 @dataclass(frozen=True)
@@ -127,19 +143,36 @@ def file_sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
+def _centred(values: np.ndarray) -> tuple[float, np.ndarray]:
+    """The mean and the deviations from it, taken after subtracting a pivot (the median).
+
+    Summing values with a large common offset (1e15 + u) rounds the sum to the offset's float
+    spacing, and that error in the mean then enters every square. Near the pivot the differences
+    are exact (Sterbenz: two floats within a factor 2 of each other subtract exactly), so the mean
+    of the differences, and the deviations from it, keep the digits of u.
+    """
+    pivot = float(np.median(values))
+    shifted = values - pivot
+    shift_mean = float(np.mean(shifted))
+    return pivot + shift_mean, shifted - shift_mean
+
+
 def sufficient_stats(x: np.ndarray, y: np.ndarray) -> SufficientStats:
-    """Two-pass (centred) sums, which stay accurate when the means are large."""
-    mean_x = float(np.mean(x))
-    mean_y = float(np.mean(y))
-    dx = x - mean_x
-    dy = y - mean_y
+    """Pivot-centred two-pass sums, which stay accurate when the means are large, plus the residual
+    sum of squares of y on x from a further pass, so that ``1 - |r|`` keeps its digits near 1."""
+    mean_x, dx = _centred(x)
+    mean_y, dy = _centred(y)
+    sxx = float(dx @ dx)
+    sxy = float(dx @ dy)
+    residual = dy - (sxy / sxx) * dx if sxx > 0.0 else dy
     return SufficientStats(
         n=int(x.size),
         mean_x=mean_x,
         mean_y=mean_y,
-        sxx=float(dx @ dx),
+        sxx=sxx,
         syy=float(dy @ dy),
-        sxy=float(dx @ dy),
+        sxy=sxy,
+        rss=float(residual @ residual),
     )
 
 
@@ -375,7 +408,8 @@ def pair_data(table: Table, pair: PairSpec, missing_policy: str) -> PairData:
                             "correlation; rescale it, e.g. to thousandths or millionths")
     with np.errstate(all="ignore"):
         r = stats.sample_r
-    if not np.isfinite(r) or abs(r) >= PERFECT_CORRELATION:
+        complement = stats.one_minus_abs_r
+    if not (np.isfinite(r) and complement > PERFECT_CORRELATION_COMPLEMENT) or abs(r) >= PERFECT_CORRELATION:
         raise DataError(f"{where}: the columns are perfectly correlated (sample r = {r:+.6f}): one is an exact "
                         "linear function of the other, so there is nothing to estimate; pair other columns")
     rows = np.asarray(table.frame.index, dtype=np.int64)[complete]

@@ -1,22 +1,53 @@
 """Exact marginal posterior of a Pearson correlation for bivariate-normal data.
 
 The data enter only through ``(n, r)``: the number of complete pairs and the
-sample Pearson correlation. The nuisance parameters get Jeffreys' reference
-priors (flat on both means, ``1/sigma`` on each standard deviation) and the
-correlation ``rho`` gets a Beta(a, b) distribution stretched to [-1, 1].
+sample Pearson correlation (with, near ``|r| = 1``, the complement ``1 - |r|``
+computed from the residuals, because the rounded ``r`` has lost it). The means
+get flat priors, each standard deviation either Jeffreys' reference prior
+``1/sigma`` (the default) or a flat one, and the correlation ``rho`` a Beta(a, b)
+distribution stretched to [-1, 1].
 
 Integrating the two means and the two standard deviations out of the
 bivariate-normal likelihood leaves the marginal likelihood kernel (Jeffreys
 1961, *Theory of Probability*, ch. 5; Ly, Marsman & Wagenmakers 2018,
 *Statistica Neerlandica* 72(1))::
 
-    h(rho | n, r) = (1 - rho^2)^((n - 1)/2) * I_{n-1}(rho * r),
+    h(rho | n, r) = (1 - rho^2)^(m - (n - 1)/2) * I_m(rho * r),
     I_m(x) = integral_0^inf (cosh w - x)^(-m) dw
            = sqrt(pi/2) * Gamma(m) / Gamma(m + 1/2) * (1 - x)^(-(m - 1/2))
-             * 2F1(1/2, 1/2; m + 1/2; (1 + x)/2).
+             * 2F1(1/2, 1/2; m + 1/2; (1 + x)/2),
 
-With ``m = n - 1`` this is the model with unknown means (for known means the
-exponents would use ``n`` instead of ``n - 1``).
+with ``m = n - 1`` for Jeffreys' priors on the standard deviations (exponent
+``(n - 1)/2``) and ``m = n - 2`` for flat ones (exponent ``(n - 3)/2``).
+
+Derivation, for the prior ``(sigma1 sigma2)^(-k)`` (``k = 1`` Jeffreys',
+``k = 0`` flat). With ``S`` the matrix of centred sums of squares and products
+(``Sxx``, ``Sxy``, ``Syy``), integrating the means against a flat prior gives
+the Gaussian integral ``2 pi |Sigma|^(1/2) / n``, so::
+
+    p(data | Sigma) = (2 pi)^(-(n-1)) n^(-1) |Sigma|^(-(n-1)/2) exp(-tr(Sigma^-1 S) / 2),
+    |Sigma| = sigma1^2 sigma2^2 (1 - rho^2),
+    tr(Sigma^-1 S) = (Sxx/sigma1^2 - 2 rho Sxy/(sigma1 sigma2) + Syy/sigma2^2) / (1 - rho^2).
+
+Substituting ``u = sqrt(Sxx)/sigma1`` and ``v = sqrt(Syy)/sigma2`` turns
+``(sigma1 sigma2)^(-(n-1)-k) d sigma1 d sigma2`` into
+``(Sxx Syy)^(-(p+1)/2) (u v)^p du dv`` with ``p = n - 3 + k``, and the exponent
+into ``-(u^2 - 2 rho r u v + v^2) / (2 (1 - rho^2))``. Then ``u = sqrt(l) e^(w/2)``,
+``v = sqrt(l) e^(-w/2)`` (``du dv = dl dw / 2``, ``u v = l``, ``u^2 + v^2 = 2 l cosh w``)
+and the Gamma integral over ``l`` give::
+
+    integral integral (u v)^p exp(...) du dv = Gamma(p + 1) (1 - rho^2)^(p + 1) I_(p+1)(rho r),
+
+so with ``m = p + 1 = n - 2 + k``::
+
+    p(data | rho) = (2 pi)^(-(n-1)) Gamma(m) / n * (Sxx Syy)^(-m/2)
+                    * (1 - rho^2)^(m - (n-1)/2) * I_m(rho r).
+
+The ``u, v`` integral converges for ``p > -1``, that is ``n >= 3`` with flat
+priors; the closed form below is used for ``m >= 2``, so both priors need
+``n >= 4`` here. The factor in front does not depend on ``rho`` and cancels
+from the posterior and from ``BF10 = integral prior(rho) h(rho) drho / h(0)``
+(H0: ``rho = 0`` with the same priors on the rest).
 
 Numerical route
 ---------------
@@ -40,10 +71,19 @@ placed adaptively where the log density is within 50 units of its maximum,
 starting from ``atanh(r) +/- 60 / sqrt(n - 3)``, so it follows the posterior
 from ``n = 4`` (where it covers most of (-1, 1)) to ``n = 10**7`` (where the
 posterior standard deviation is about ``(1 - r^2) / sqrt(n)``). On the grid
-the O(n)-sized power terms ``(m/2) log(1 - rho^2) - (m - 1/2) log(1 - rho r)``
+the O(n)-sized power terms ``(m - (n-1)/2) log(1 - rho^2) - (m - 1/2) log(1 - rho r)``
 are evaluated as differences from their value at ``atanh(r)``, formed
 directly from ``atanh(rho) - atanh(r)``, so the normalised density keeps
 full relative precision even at ``n = 10**7``.
+
+Near ``|r| = 1`` everything that depends on the closeness of ``r`` to -+1 is
+formed from ``c = 1 - |r|`` as given by the caller: ``atanh(r) =
+sign(r) log1p(2 |r| / c) / 2`` and ``1 -/+ rho r = c + |r| (1 -/+ rho)`` (the
+sign chosen with ``r``'s), never from ``1 - |r|`` of a rounded ``r``. The grid
+may then sit far out in ``zeta`` (``atanh(r)`` is about 115 at ``c = 1e-100``),
+which it is allowed up to ``|zeta| = 200``. Tail and interval probabilities add
+per-interval integrals of a 6th-order rule; the mean and the Bayes factor use
+the trapezoidal rule on the whole grid.
 """
 
 from __future__ import annotations
@@ -57,6 +97,9 @@ from numpy.typing import ArrayLike
 from scipy import interpolate, optimize, special, stats
 
 __all__ = [
+    "MIN_ONE_MINUS_ABS_R",
+    "MIN_PAIRS",
+    "SD_PRIORS",
     "ExactPosterior",
     "exact_posterior",
     "fisher_z_interval",
@@ -68,13 +111,24 @@ __all__ = [
 MIN_PAIRS = 4
 """Smallest number of complete pairs accepted."""
 
+SD_PRIORS = ("jeffreys", "flat")
+"""Priors on the two standard deviations: ``1/sigma`` each (Jeffreys') or flat."""
+
+MIN_ONE_MINUS_ABS_R = 1e-100
+"""Smallest ``1 - |r|`` honoured (given as ``one_minus_abs_r``); the grid then reaches ``|atanh(rho)|``
+of about 170, inside ``_Z_MAX``."""
+
 _SERIES_TOL = 1e-17  # bound on the neglected tail of a series, relative to its sum
 _SERIES_MAX_TERMS = 100_000
 _REFLECT_MAX_M = 14  # use the z -> 1 - z connection formula only for m <= this ...
 _REFLECT_MIN_Z = 0.75  # ... and only for arguments above this
 _LOG_DROP = 50.0  # the grid covers the region where log density > max - _LOG_DROP
 _INITIAL_HALF_WIDTH = 60.0  # first grid: atanh(r) +/- this many 1/sqrt(n - 3)
-_Z_LIMIT = 30.0  # never place grid points beyond |atanh(rho)| = this
+_Z_LIMIT = 30.0  # the first grid stays within |atanh(rho)| <= this ...
+_Z_MARGIN = 20.0  # ... or within this of atanh(r), whichever reaches further
+_Z_MAX = 200.0  # never place grid points beyond |atanh(rho)| = this (1 - |rho| ~ 4e-174)
+_COMPLEMENT_TOL = 1e-9  # one_minus_abs_r must agree with 1 - |r| to this (absolute)
+_SD_PRIOR_K = {"jeffreys": 1, "flat": 0}  # the prior on each sd is sigma^-k
 _MAX_GRID_PASSES = 16
 _MIN_GRID_SIZE = 101
 
@@ -106,6 +160,50 @@ def _check_r(r: float) -> float:
     if not (-1.0 < value < 1.0):
         raise ValueError(f"r must be strictly between -1 and 1, got {r!r}")
     return value
+
+
+@dataclass(frozen=True)
+class _Case:
+    """What the kernel needs from the data and the sd prior, checked.
+
+    ``h(rho) = (1 - rho^2)^power * I_order(rho r)``; ``complement`` is ``1 - |r|`` (carrying the
+    digits that a rounded ``r`` near +-1 has lost) and ``centre`` is ``atanh(r)``.
+    """
+
+    n: int
+    r: float
+    complement: float
+    order: int
+    power: float
+    centre: float
+
+
+def _check_case(n: int, r: float, one_minus_abs_r: float | None, sd_prior: str) -> _Case:
+    n = _check_n(n)
+    if sd_prior not in SD_PRIORS:
+        raise ValueError(f"sd_prior must be one of {', '.join(repr(p) for p in SD_PRIORS)}, got {sd_prior!r}")
+    if one_minus_abs_r is None:
+        r = _check_r(r)
+        complement = 1.0 - abs(r)  # exact for |r| >= 1/2 (Sterbenz), accurate to rounding below
+        centre = math.atanh(r)
+    else:
+        try:
+            r = float(r)
+            complement = float(one_minus_abs_r)
+        except (TypeError, ValueError) as exc:
+            raise ValueError(f"r and one_minus_abs_r must be numbers, got {r!r} and {one_minus_abs_r!r}") from exc
+        if not -1.0 <= r <= 1.0:
+            raise ValueError(f"r must lie between -1 and 1 (either end allowed with one_minus_abs_r), got {r!r}")
+        if not MIN_ONE_MINUS_ABS_R <= complement <= 1.0:
+            raise ValueError(f"one_minus_abs_r must lie between {MIN_ONE_MINUS_ABS_R:g} and 1, got {complement!r}")
+        if abs((1.0 - abs(r)) - complement) > _COMPLEMENT_TOL:
+            raise ValueError(f"one_minus_abs_r = {complement!r} must agree with 1 - |r| = {1.0 - abs(r)!r} "
+                             f"to {_COMPLEMENT_TOL:g}")
+        # atanh|r| = log((1 + |r|) / (1 - |r|)) / 2 = log1p(2 |r| / (1 - |r|)) / 2, accurate at both ends
+        centre = math.copysign(0.5 * math.log1p(2.0 * abs(r) / complement), r)
+    k = _SD_PRIOR_K[sd_prior]
+    order = n - 2 + k
+    return _Case(n=n, r=r, complement=complement, order=order, power=order - 0.5 * (n - 1), centre=centre)
 
 
 def _check_shape(value: float, name: str) -> float:
@@ -236,13 +334,17 @@ def _log_gamma_ratio_half(m: int) -> float:
 
 
 def _one_minus_plus_x(
-    one_minus_rho: np.ndarray, one_plus_rho: np.ndarray, r: float
+    one_minus_rho: np.ndarray, one_plus_rho: np.ndarray, r: float, complement: float
 ) -> tuple[np.ndarray, np.ndarray]:
-    """``1 - rho r`` and ``1 + rho r`` as sums of non-negative terms (no cancellation)."""
+    """``1 - rho r`` and ``1 + rho r`` as sums of non-negative terms (no cancellation).
+
+    ``complement`` is ``1 - |r|``; near ``|r| = 1`` it must come from the caller, as the rounded
+    ``r`` no longer holds it.
+    """
     abs_r = abs(r)
     if r >= 0.0:
-        return (1.0 - abs_r) + abs_r * one_minus_rho, (1.0 - abs_r) + abs_r * one_plus_rho
-    return (1.0 - abs_r) + abs_r * one_plus_rho, (1.0 - abs_r) + abs_r * one_minus_rho
+        return complement + abs_r * one_minus_rho, complement + abs_r * one_plus_rho
+    return complement + abs_r * one_plus_rho, complement + abs_r * one_minus_rho
 
 
 def _log_kernel_remainder(one_minus_x: np.ndarray, one_plus_x: np.ndarray, m: int) -> np.ndarray:
@@ -251,35 +353,44 @@ def _log_kernel_remainder(one_minus_x: np.ndarray, one_plus_x: np.ndarray, m: in
     return log_const + _log_hyp2f1_half(0.5 * one_plus_x, 0.5 * one_minus_x, m)
 
 
-def _log_kernel_from_parts(
-    one_minus_rho: np.ndarray, one_plus_rho: np.ndarray, n: int, r: float
-) -> np.ndarray:
-    """log h(rho | n, r) from accurately computed ``1 - rho`` and ``1 + rho`` (1-D arrays)."""
-    m = n - 1
-    one_minus_x, one_plus_x = _one_minus_plus_x(one_minus_rho, one_plus_rho, r)
+def _log_kernel_from_parts(one_minus_rho: np.ndarray, one_plus_rho: np.ndarray, case: _Case) -> np.ndarray:
+    """log h(rho) from accurately computed ``1 - rho`` and ``1 + rho`` (1-D arrays)."""
+    m = case.order
+    one_minus_x, one_plus_x = _one_minus_plus_x(one_minus_rho, one_plus_rho, case.r, case.complement)
     with np.errstate(divide="ignore"):
         log_one_minus_rho2 = np.log(one_minus_rho) + np.log(one_plus_rho)
-    powers = 0.5 * m * log_one_minus_rho2 - (m - 0.5) * np.log(one_minus_x)
+    powers = case.power * log_one_minus_rho2 - (m - 0.5) * np.log(one_minus_x)
     return powers + _log_kernel_remainder(one_minus_x, one_plus_x, m)
 
 
 # --------------------------------------------------------------------------- public functions
 
 
-def log_likelihood_kernel(rho: ArrayLike, n: int, r: float) -> np.ndarray:
-    """Log of Jeffreys' marginal likelihood kernel ``h(rho | n, r)`` of a correlation.
+def log_likelihood_kernel(
+    rho: ArrayLike,
+    n: int,
+    r: float,
+    *,
+    one_minus_abs_r: float | None = None,
+    sd_prior: str = "jeffreys",
+) -> np.ndarray:
+    """Log of the marginal likelihood kernel ``h(rho | n, r)`` of a correlation.
 
-    ``h(rho | n, r) = (1 - rho^2)^((n-1)/2) * integral_0^inf (cosh w - rho r)^(-(n-1)) dw``,
-    evaluated through its closed form with the Gauss hypergeometric function.
+    With Jeffreys' priors on the standard deviations (``sd_prior="jeffreys"``)
+    ``h(rho | n, r) = (1 - rho^2)^((n-1)/2) * integral_0^inf (cosh w - rho r)^(-(n-1)) dw``;
+    with flat priors on them (``sd_prior="flat"``)
+    ``h(rho | n, r) = (1 - rho^2)^((n-3)/2) * integral_0^inf (cosh w - rho r)^(-(n-2)) dw``
+    (see the module docstring). Both are evaluated through the closed form with
+    the Gauss hypergeometric function.
 
     The value returned is ``log h`` itself, with the factor
-    ``sqrt(pi/2) Gamma(n-1) / Gamma(n-1/2)`` of the closed form included. It
-    differs from the log marginal likelihood ``log p(data | rho)`` (means
-    integrated against a flat prior, standard deviations against
-    ``1/sigma1 * 1/sigma2``) by the additive constant
-    ``log[(2 pi)^-(n-1) Gamma(n-1) / n * (Sxx Syy)^(-(n-1)/2)]``, where ``Sxx``
-    and ``Syy`` are the centred sums of squares. That constant does not depend
-    on ``rho``, so it cancels from posteriors and Bayes factors.
+    ``sqrt(pi/2) Gamma(m) / Gamma(m - 1/2)`` of the closed form included
+    (``m = n - 1`` for Jeffreys' priors, ``n - 2`` for flat ones). It differs
+    from the log marginal likelihood ``log p(data | rho)`` (means integrated
+    against a flat prior, standard deviations against the sd prior) by the
+    additive constant ``log[(2 pi)^-(n-1) Gamma(m) / n * (Sxx Syy)^(-m/2)]``,
+    where ``Sxx`` and ``Syy`` are the centred sums of squares. That constant
+    does not depend on ``rho``, so it cancels from posteriors and Bayes factors.
 
     Parameters
     ----------
@@ -288,7 +399,14 @@ def log_likelihood_kernel(rho: ArrayLike, n: int, r: float) -> np.ndarray:
     n : int
         Number of complete pairs, at least 4.
     r : float
-        Sample Pearson correlation, strictly between -1 and 1.
+        Sample Pearson correlation, strictly between -1 and 1 (or in [-1, 1]
+        when ``one_minus_abs_r`` is given).
+    one_minus_abs_r : float, optional
+        ``1 - |r|`` computed without cancellation (for example
+        ``SufficientStats.one_minus_abs_r``), between ``MIN_ONE_MINUS_ABS_R``
+        and 1 and within 1e-9 of ``1 - |r|``. Default: ``1 - |r|`` from ``r``.
+    sd_prior : {"jeffreys", "flat"}, default "jeffreys"
+        Prior on each standard deviation: ``1/sigma`` or flat.
 
     Returns
     -------
@@ -298,16 +416,16 @@ def log_likelihood_kernel(rho: ArrayLike, n: int, r: float) -> np.ndarray:
     Raises
     ------
     ValueError
-        If ``n < 4`` or not whole, ``|r| >= 1``, or any ``rho`` is outside [-1, 1].
+        If ``n < 4`` or not whole, ``r`` or ``one_minus_abs_r`` is out of range or
+        the two disagree, ``sd_prior`` is unknown, or any ``rho`` is outside [-1, 1].
     """
-    n = _check_n(n)
-    r = _check_r(r)
+    case = _check_case(n, r, one_minus_abs_r, sd_prior)
     values = np.asarray(rho, dtype=float)
     if not np.all(np.isfinite(values)) or np.any(np.abs(values) > 1.0):
         raise ValueError("rho must lie in [-1, 1]")
     flat = values.reshape(-1)
     # 1 - rho and 1 + rho are exact in floating point where they are small (Sterbenz).
-    out = _log_kernel_from_parts(1.0 - flat, 1.0 + flat, n, r)
+    out = _log_kernel_from_parts(1.0 - flat, 1.0 + flat, case)
     return out.reshape(values.shape)
 
 
@@ -357,7 +475,9 @@ def _log_stretched_beta_from_parts(
     return np.where(inside, log_pdf, -np.inf)
 
 
-def fisher_z_interval(n: int, r: float, mass: float) -> tuple[float, float]:
+def fisher_z_interval(
+    n: int, r: float, mass: float, *, one_minus_abs_r: float | None = None
+) -> tuple[float, float]:
     """Large-sample interval for rho from Fisher's z transformation.
 
     ``tanh(atanh(r) -/+ q / sqrt(n - 3))`` with ``q`` the ``(1 + mass)/2``
@@ -368,21 +488,22 @@ def fisher_z_interval(n: int, r: float, mass: float) -> tuple[float, float]:
     n : int
         Number of complete pairs, at least 4.
     r : float
-        Sample Pearson correlation, strictly between -1 and 1.
+        Sample Pearson correlation, strictly between -1 and 1 (or in [-1, 1]
+        when ``one_minus_abs_r`` is given).
     mass : float
         Central probability, strictly between 0 and 1.
+    one_minus_abs_r : float, optional
+        ``1 - |r|`` computed without cancellation, as for :func:`exact_posterior`.
 
     Returns
     -------
     tuple of float
         ``(lower, upper)``.
     """
-    n = _check_n(n)
-    r = _check_r(r)
+    case = _check_case(n, r, one_minus_abs_r, "jeffreys")
     mass = _check_mass(mass)
-    half = float(stats.norm.ppf(0.5 * (1.0 + mass))) / math.sqrt(n - 3)
-    centre = math.atanh(r)
-    return math.tanh(centre - half), math.tanh(centre + half)
+    half = float(stats.norm.ppf(0.5 * (1.0 + mass))) / math.sqrt(case.n - 3)
+    return math.tanh(case.centre - half), math.tanh(case.centre + half)
 
 
 # --------------------------------------------------------------------------- posterior
@@ -393,29 +514,37 @@ def _one_minus_plus_tanh(zeta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return 2.0 / (1.0 + np.exp(2.0 * zeta)), 2.0 / (1.0 + np.exp(-2.0 * zeta))
 
 
-def _log_integrand_z(
-    zeta: np.ndarray, n: int, r: float, a: float, b: float, zeta_ref: float
-) -> np.ndarray:
+def _log_integrand_z(zeta: np.ndarray, case: _Case, a: float, b: float, zeta_ref: float) -> np.ndarray:
     """log[prior(rho) h(rho) (1 - rho^2)] at rho = tanh(zeta), minus its power terms at zeta_ref.
 
-    The power terms ``(m/2) log(1 - rho^2) - (m - 1/2) log(1 - rho r)`` are O(n) in
+    The power terms ``power * log(1 - rho^2) - (m - 1/2) log(1 - rho r)`` are O(n) in
     size; their difference from the value at ``zeta_ref`` is formed directly from
     ``d = zeta - zeta_ref``, using ``cosh(zeta)/cosh(zeta_ref) = cosh d + rho_ref sinh d``
     and ``rho - rho_ref = sinh d (1 - rho_ref^2) / (cosh d + rho_ref sinh d)``, so the
-    result keeps full relative precision on narrow grids at large n. The subtracted
-    constant is returned by :func:`_log_powers_at`.
+    result keeps full relative precision on narrow grids at large n. Where ``|d| > 1``
+    the difference is O(1) or larger and is taken between the logs themselves, formed
+    from ``1 - rho``, ``1 + rho`` and ``1 - rho r``: there the ``d`` form can cancel
+    (``2 sinh^2(d/2) + rho_ref sinh d`` when ``rho_ref`` is near -+1 and ``d`` has the
+    other sign). The subtracted constant is returned by :func:`_log_powers_at`.
     """
-    m = n - 1
+    m = case.order
     one_minus, one_plus = _one_minus_plus_tanh(zeta)
-    one_minus_x, one_plus_x = _one_minus_plus_x(one_minus, one_plus, r)
+    one_minus_x, one_plus_x = _one_minus_plus_x(one_minus, one_plus, case.r, case.complement)
     ref_minus, ref_plus = _one_minus_plus_tanh(np.array([zeta_ref]))
-    ref_minus_x, _ = _one_minus_plus_x(ref_minus, ref_plus, r)
+    ref_minus_x, _ = _one_minus_plus_x(ref_minus, ref_plus, case.r, case.complement)
     rho_ref = math.tanh(zeta_ref)
     d = zeta - zeta_ref
-    sinh_d = np.sinh(d)
-    cosh_ratio_m1 = 2.0 * np.sinh(0.5 * d) ** 2 + rho_ref * sinh_d
+    near = np.abs(d) <= 1.0
+    dn = d[near]
+    sinh_d = np.sinh(dn)
+    cosh_ratio_m1 = 2.0 * np.sinh(0.5 * dn) ** 2 + rho_ref * sinh_d
     rho_diff = sinh_d * (ref_minus[0] * ref_plus[0]) / (1.0 + cosh_ratio_m1)
-    powers = -m * np.log1p(cosh_ratio_m1) - (m - 0.5) * np.log1p(-r * rho_diff / ref_minus_x[0])
+    powers = np.empty_like(zeta)
+    powers[near] = (-2.0 * case.power * np.log1p(cosh_ratio_m1)
+                    - (m - 0.5) * np.log1p(-case.r * rho_diff / ref_minus_x[0]))
+    far = ~near
+    log_rho2_ratio = np.log(one_minus[far]) + np.log(one_plus[far]) - math.log(ref_minus[0]) - math.log(ref_plus[0])
+    powers[far] = case.power * log_rho2_ratio - (m - 0.5) * (np.log(one_minus_x[far]) - math.log(ref_minus_x[0]))
     return (
         powers
         + _log_kernel_remainder(one_minus_x, one_plus_x, m)
@@ -425,40 +554,40 @@ def _log_integrand_z(
     )
 
 
-def _log_powers_at(zeta_ref: float, n: int, r: float) -> float:
-    """``(m/2) log(1 - rho^2) - (m - 1/2) log(1 - rho r)`` at rho = tanh(zeta_ref)."""
-    m = n - 1
+def _log_powers_at(zeta_ref: float, case: _Case) -> float:
+    """``power * log(1 - rho^2) - (m - 1/2) log(1 - rho r)`` at rho = tanh(zeta_ref)."""
     ref_minus, ref_plus = _one_minus_plus_tanh(np.array([zeta_ref]))
-    ref_minus_x, _ = _one_minus_plus_x(ref_minus, ref_plus, r)
+    ref_minus_x, _ = _one_minus_plus_x(ref_minus, ref_plus, case.r, case.complement)
     log_one_minus_rho2 = math.log(ref_minus[0]) + math.log(ref_plus[0])
-    return 0.5 * m * log_one_minus_rho2 - (m - 0.5) * math.log(ref_minus_x[0])
+    return case.power * log_one_minus_rho2 - (case.order - 0.5) * math.log(ref_minus_x[0])
 
 
-def _adaptive_grid(
-    n: int, r: float, a: float, b: float, grid_size: int
-) -> tuple[np.ndarray, np.ndarray]:
+def _adaptive_grid(case: _Case, a: float, b: float, grid_size: int) -> tuple[np.ndarray, np.ndarray]:
     """Uniform grid in zeta covering where the log integrand is within _LOG_DROP of its max.
 
-    Returns the grid and the log integrand on it, offset by
-    ``-_log_powers_at(atanh(r), n, r)``.
+    The first grid spans ``atanh(r) +/- 60 / sqrt(n - 3)``, cut at ``+/-_Z_LIMIT`` or
+    ``_Z_MARGIN`` beyond ``atanh(r)``, whichever is further out; later grids may grow up
+    to ``+/-_Z_MAX``, which only heavy tails (flat sd priors at the smallest n) or
+    ``|r|`` within about 1e-8 of 1 need. Returns the grid and the log integrand on it,
+    offset by ``-_log_powers_at(atanh(r), case)``.
     """
-    scale = 1.0 / math.sqrt(n - 3)
-    centre = math.atanh(r)
-    lo = max(centre - _INITIAL_HALF_WIDTH * scale, -_Z_LIMIT)
-    hi = min(centre + _INITIAL_HALF_WIDTH * scale, _Z_LIMIT)
+    scale = 1.0 / math.sqrt(case.n - 3)
+    centre = case.centre
+    lo = max(centre - _INITIAL_HALF_WIDTH * scale, min(-_Z_LIMIT, centre - _Z_MARGIN))
+    hi = min(centre + _INITIAL_HALF_WIDTH * scale, max(_Z_LIMIT, centre + _Z_MARGIN))
     for _ in range(_MAX_GRID_PASSES):
         grid = np.linspace(lo, hi, grid_size)
-        log_f = _log_integrand_z(grid, n, r, a, b, centre)
+        log_f = _log_integrand_z(grid, case, a, b, centre)
         kept = np.flatnonzero(log_f >= log_f.max() - _LOG_DROP)
         first, last = int(kept[0]), int(kept[-1])
-        grow_lo = first == 0 and lo > -_Z_LIMIT
-        grow_hi = last == grid_size - 1 and hi < _Z_LIMIT
+        grow_lo = first == 0 and lo > -_Z_MAX
+        grow_hi = last == grid_size - 1 and hi < _Z_MAX
         if grow_lo or grow_hi:
             width = hi - lo
             if grow_lo:
-                lo = max(lo - width, -_Z_LIMIT)
+                lo = max(lo - width, -_Z_MAX)
             if grow_hi:
-                hi = min(hi + width, _Z_LIMIT)
+                hi = min(hi + width, _Z_MAX)
             continue
         if last - first >= grid_size // 2:
             break
@@ -495,6 +624,11 @@ class ExactPosterior:
         (``density * (1 - rho^2)``).
     log_bf10 : float
         Natural log of the Bayes factor of H1 (rho ~ prior) against H0 (rho = 0).
+    one_minus_abs_r : float
+        ``1 - |r|`` as the posterior used it (given by the caller, or from ``r``);
+        near ``|r| = 1`` it holds the digits that ``r`` has lost.
+    sd_prior : str
+        Prior on the standard deviations: ``"jeffreys"`` or ``"flat"``.
     """
 
     n: int
@@ -506,6 +640,8 @@ class ExactPosterior:
     density: np.ndarray
     z_density: np.ndarray
     log_bf10: float
+    one_minus_abs_r: float = math.nan
+    sd_prior: str = "jeffreys"
 
     # ------------------------------------------------------------------ internals
 
@@ -518,11 +654,22 @@ class ExactPosterior:
 
     @cached_property
     def _pieces(self) -> np.ndarray:
-        """Integral of the zeta density over each grid interval (4th-order rule)."""
+        """Integral of the zeta density over each grid interval.
+
+        Interior intervals use the quintic through the six nearest points,
+        ``h (11 f[i-2] - 93 f[i-1] + 802 f[i] + 802 f[i+1] - 93 f[i+2] + 11 f[i+3]) / 1440``
+        (6th order: on wide grids, at the smallest n, the 4th-order rule left
+        relative errors near 1e-7 in tail probabilities); the two intervals at
+        each end, where the density is below exp(-50) of its maximum, use the
+        cubic through four points.
+        """
         f = self.z_density
         h = self._step
         pieces = np.empty(f.size - 1)
         pieces[1:-1] = h / 24.0 * (-f[:-3] + 13.0 * f[1:-2] + 13.0 * f[2:-1] - f[3:])
+        pieces[2:-2] = h / 1440.0 * (
+            11.0 * (f[:-5] + f[5:]) - 93.0 * (f[1:-4] + f[4:-1]) + 802.0 * (f[2:-3] + f[3:-2])
+        )
         pieces[0] = h / 12.0 * (5.0 * f[0] + 8.0 * f[1] - f[2])
         pieces[-1] = h / 12.0 * (-f[-3] + 8.0 * f[-2] + 5.0 * f[-1])
         trapezoid = 0.5 * h * (f[:-1] + f[1:])
@@ -777,22 +924,28 @@ def exact_posterior(
     prior_a: float = 1.0,
     prior_b: float = 1.0,
     grid_size: int = 4001,
+    *,
+    one_minus_abs_r: float | None = None,
+    sd_prior: str = "jeffreys",
 ) -> ExactPosterior:
-    """Exact marginal posterior of a correlation under Jeffreys' reference priors.
+    """Exact marginal posterior of a correlation for bivariate-normal data.
 
     The posterior is ``prior(rho) h(rho | n, r)`` normalised by quadrature,
     with ``h`` from :func:`log_likelihood_kernel` and the prior a stretched
-    Beta(prior_a, prior_b) on [-1, 1]. The integration runs in
-    ``zeta = atanh(rho)`` on a uniform grid placed adaptively where the mass
-    is, using the trapezoidal rule (geometrically convergent here because the
-    integrand is smooth with exponentially decaying tails).
+    Beta(prior_a, prior_b) on [-1, 1]. The means have flat priors; the standard
+    deviations Jeffreys' ``1/sigma`` (default) or flat ones. The integration
+    runs in ``zeta = atanh(rho)`` on a uniform grid placed adaptively where the
+    mass is, using the trapezoidal rule (geometrically convergent here because
+    the integrand is smooth with exponentially decaying tails).
 
     Parameters
     ----------
     n : int
-        Number of complete pairs, at least 4.
+        Number of complete pairs, at least 4 (also for flat sd priors, whose
+        kernel needs ``n >= 3``; the closed form here needs ``m = n - 2 >= 2``).
     r : float
-        Sample Pearson correlation, strictly between -1 and 1.
+        Sample Pearson correlation, strictly between -1 and 1 (or in [-1, 1]
+        when ``one_minus_abs_r`` is given).
     prior_a : float, default 1.0
         First shape of the stretched Beta prior (weight towards rho = +1).
     prior_b : float, default 1.0
@@ -800,6 +953,15 @@ def exact_posterior(
         Uniform(-1, 1). Shapes below 1 (density infinite at an end) are fine.
     grid_size : int, default 4001
         Number of grid points, at least 101.
+    one_minus_abs_r : float, optional
+        ``1 - |r|`` computed without cancellation (for example
+        ``SufficientStats.one_minus_abs_r``). Near ``|r| = 1`` the rounded ``r``
+        has lost these digits, and the posterior depends on them: it is used
+        wherever the closeness of ``r`` to -+1 matters (``atanh(r)``,
+        ``1 -/+ rho r``). Must lie between ``MIN_ONE_MINUS_ABS_R`` (1e-100) and
+        1 and agree with ``1 - |r|`` to 1e-9. Default: ``1 - |r|`` from ``r``.
+    sd_prior : {"jeffreys", "flat"}, default "jeffreys"
+        Prior on each standard deviation: ``1/sigma`` or flat.
 
     Returns
     -------
@@ -808,23 +970,23 @@ def exact_posterior(
     Raises
     ------
     ValueError
-        For ``n < 4``, ``|r| >= 1``, a non-positive shape or ``grid_size < 101``.
+        For ``n < 4``, ``r`` or ``one_minus_abs_r`` out of range or disagreeing,
+        an unknown ``sd_prior``, a non-positive shape or ``grid_size < 101``.
     """
-    n = _check_n(n)
-    r = _check_r(r)
+    case = _check_case(n, r, one_minus_abs_r, sd_prior)
     a = _check_shape(prior_a, "prior_a")
     b = _check_shape(prior_b, "prior_b")
     if isinstance(grid_size, bool) or int(grid_size) != grid_size or grid_size < _MIN_GRID_SIZE:
         raise ValueError(f"grid_size must be an integer of at least {_MIN_GRID_SIZE}")
     grid_size = int(grid_size)
 
-    zeta, log_f = _adaptive_grid(n, r, a, b, grid_size)
+    zeta, log_f = _adaptive_grid(case, a, b, grid_size)
     step = float(zeta[1] - zeta[0])
     peak = float(log_f.max())
     scaled = np.exp(log_f - peak)
     log_norm_rel = peak + math.log(step * (float(np.sum(scaled)) - 0.5 * (scaled[0] + scaled[-1])))
-    log_norm = log_norm_rel + _log_powers_at(math.atanh(r), n, r)
-    log_h0 = float(_log_kernel_from_parts(np.ones(1), np.ones(1), n, r)[0])
+    log_norm = log_norm_rel + _log_powers_at(case.centre, case)
+    log_h0 = float(_log_kernel_from_parts(np.ones(1), np.ones(1), case)[0])
 
     one_minus, one_plus = _one_minus_plus_tanh(zeta)
     log_z_density = log_f - log_norm_rel
@@ -838,20 +1000,31 @@ def exact_posterior(
     for values in arrays.values():
         values.setflags(write=False)
     return ExactPosterior(
-        n=n,
-        r=r,
+        n=case.n,
+        r=case.r,
         prior_a=a,
         prior_b=b,
         log_bf10=log_norm - log_h0,
+        one_minus_abs_r=case.complement,
+        sd_prior=sd_prior,
         **arrays,
     )
 
 
-def log_bayes_factor_10(n: int, r: float, prior_a: float = 1.0, prior_b: float = 1.0) -> float:
+def log_bayes_factor_10(
+    n: int,
+    r: float,
+    prior_a: float = 1.0,
+    prior_b: float = 1.0,
+    *,
+    one_minus_abs_r: float | None = None,
+    sd_prior: str = "jeffreys",
+) -> float:
     """Natural log of the Bayes factor BF10 for a correlation.
 
     H1: rho ~ stretched Beta(prior_a, prior_b) on [-1, 1]; H0: rho = 0; the
-    nuisance parameters have Jeffreys' reference priors under both. Computed as
+    nuisance parameters have the same priors under both (flat means, and
+    ``sd_prior`` on the standard deviations). Computed as
     ``log(integral prior(rho) h(rho) drho) - log h(0)`` with the integral done
     in log space, so it stays accurate when BF10 is astronomically large.
 
@@ -860,15 +1033,20 @@ def log_bayes_factor_10(n: int, r: float, prior_a: float = 1.0, prior_b: float =
     n : int
         Number of complete pairs, at least 4.
     r : float
-        Sample Pearson correlation, strictly between -1 and 1.
+        Sample Pearson correlation, strictly between -1 and 1 (or in [-1, 1]
+        when ``one_minus_abs_r`` is given).
     prior_a : float, default 1.0
         First shape of the stretched Beta prior.
     prior_b : float, default 1.0
         Second shape of the stretched Beta prior.
+    one_minus_abs_r : float, optional
+        ``1 - |r|`` computed without cancellation, as for :func:`exact_posterior`.
+    sd_prior : {"jeffreys", "flat"}, default "jeffreys"
+        Prior on each standard deviation: ``1/sigma`` or flat.
 
     Returns
     -------
     float
         ``log BF10``; positive values favour H1.
     """
-    return exact_posterior(n, r, prior_a, prior_b).log_bf10
+    return exact_posterior(n, r, prior_a, prior_b, one_minus_abs_r=one_minus_abs_r, sd_prior=sd_prior).log_bf10
