@@ -72,20 +72,31 @@ def bounded_density(
     lower: float | None = None,
     upper: float | None = None,
     grid_size: int = 256,
+    offset: float = 0.0,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Gaussian kernel density on a grid, reflected at known bounds.
 
     Reflection keeps the density from leaking past a bound such as rho = 1 or
     sigma = 0 (common practice; Silverman 1986, Density Estimation, sec. 2.10).
+
+    The grid is relative to ``offset`` (the density of ``draws - offset``; the
+    bounds are absolute and shifted the same way). Draws far from zero compared
+    with their spread, such as means near 1e12 known to 0.01, need this: an
+    absolute grid there would span only a few floating-point steps. Constant
+    draws give a spike on a small grid around their value.
     """
-    values = np.ravel(draws).astype(float)
+    values = np.ravel(draws).astype(float) - offset
+    low_bound = None if lower is None else lower - offset
+    high_bound = None if upper is None else upper - offset
     spread = float(np.std(values))
-    low = float(np.min(values)) - 0.5 * spread
-    high = float(np.max(values)) + 0.5 * spread
-    if lower is not None:
-        low = max(low, lower)
-    if upper is not None:
-        high = min(high, upper)
+    # constant draws: a small window around the value, so that the grid still increases
+    margin = 0.5 * spread if spread > 0.0 else 1e-3 * max(1.0, abs(float(values[0])))
+    low = float(np.min(values)) - margin
+    high = float(np.max(values)) + margin
+    if low_bound is not None:
+        low = max(low, low_bound)
+    if high_bound is not None:
+        high = min(high, high_bound)
     grid = np.linspace(low, high, grid_size)
     if spread == 0.0:
         density = np.zeros_like(grid)
@@ -93,10 +104,10 @@ def bounded_density(
         return grid, density
     kde = sps.gaussian_kde(values, bw_method="scott")
     density = kde(grid)
-    if lower is not None:
-        density += kde(2.0 * lower - grid)
-    if upper is not None:
-        density += kde(2.0 * upper - grid)
+    if low_bound is not None:
+        density += kde(2.0 * low_bound - grid)
+    if high_bound is not None:
+        density += kde(2.0 * high_bound - grid)
     return grid, density
 
 

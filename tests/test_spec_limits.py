@@ -104,8 +104,8 @@ def test_reserved_rule_names_match_the_results_header() -> None:
 
     rules = ("positive_rule", "rope_width", "strong")
     header, _ = results_rows(RunResults(pairs=(), credible_mass=0.95, interval_kind="central", rule_names=rules))
-    fixed = header[: len(header) - len(rules)]
-    assert header[len(fixed):] == [f"p_{name}" for name in rules]
+    fixed = header[: len(header) - 2 * len(rules)]
+    assert header[len(fixed):] == [column for name in rules for column in (f"p_{name}", f"p_{name}_mcse")]
     assert {column for column in fixed if column.startswith("p_")} == set(FIXED_P_COLUMNS)
     taken = {column.removeprefix("p_").removesuffix("_mcse") for column in fixed if column.startswith("p_")}
     assert taken <= RESERVED_RULE_NAMES

@@ -16,7 +16,13 @@ Layout of the package
   :func:`ellipse_geometry`, :func:`rho_density`, :func:`parameter_densities`
   and :class:`DensityPanel`;
 * :mod:`reportgen.figures.diagram` — :func:`model_diagram`;
-* :mod:`reportgen.figures.checks` — :func:`mahalanobis_qq` (model checks).
+* :mod:`reportgen.figures.checks` — :func:`mahalanobis_qq` (model checks);
+* :mod:`reportgen.figures.placeholder` — :func:`unavailable_figure`, the
+  stand-in for a figure whose inputs were refused.
+
+Inputs a figure cannot be drawn from raise :class:`FigureError` (a
+``ValueError``), never anything broader, so that a caller can put a
+placeholder in its place and carry on.
 
 The public names are re-exported here; import them from ``reportgen.figures``.
 
@@ -53,6 +59,7 @@ from reportgen.figures.pair import (
     rho_density,
     scatter_with_ellipses,
 )
+from reportgen.figures.placeholder import unavailable_figure
 from reportgen.figures.style import (
     ALERT,
     AMBER,
@@ -65,6 +72,7 @@ from reportgen.figures.style import (
     RASTER_THRESHOLD,
     SLATE,
     TEAL,
+    FigureError,
     plain_text,
 )
 from reportgen.figures.summary import correlation_cmap, correlation_matrix, forest_plot
@@ -82,6 +90,7 @@ __all__ = [
     "SLATE",
     "TEAL",
     "DensityPanel",
+    "FigureError",
     "correlation_cmap",
     "correlation_matrix",
     "ellipse_geometry",
@@ -92,4 +101,5 @@ __all__ = [
     "plain_text",
     "rho_density",
     "scatter_with_ellipses",
+    "unavailable_figure",
 ]

@@ -29,6 +29,7 @@ from reportgen.figures.style import (
     MIST,
     RASTER_THRESHOLD,
     SLATE,
+    FigureError,
     _label,
     _styled,
     _text_width_pt,
@@ -193,20 +194,20 @@ def mahalanobis_qq(distances_sq: np.ndarray, expected_sq: np.ndarray, cutoff: fl
     distances = _vector("distances_sq", distances_sq)
     n = distances.size
     if n == 0:
-        raise ValueError("mahalanobis_qq needs at least one distance")
+        raise FigureError("mahalanobis_qq needs at least one distance")
     expected = _vector("expected_sq", expected_sq, n)
     if not (np.all(np.isfinite(expected)) and np.all(np.diff(expected) >= 0.0)):
-        raise ValueError("expected_sq must be finite and ascending")
+        raise FigureError("expected_sq must be finite and ascending")
     degenerate = bool(np.all(np.isnan(distances)))
     if not degenerate and not (np.all(np.isfinite(distances)) and np.all(distances >= 0.0)):
-        raise ValueError("distances_sq must be finite and non-negative (or all NaN for a degenerate pair)")
+        raise FigureError("distances_sq must be finite and non-negative (or all NaN for a degenerate pair)")
     limit = float(cutoff)
     positions = row_positions(flagged, n, "flagged")
     texts = [str(t) for t in labels]
     if len(texts) != positions.size:
-        raise ValueError(f"labels has {len(texts)} values for {positions.size} flagged rows")
+        raise FigureError(f"labels has {len(texts)} values for {positions.size} flagged rows")
     if degenerate and positions.size:
-        raise ValueError("flagged rows need finite distances")
+        raise FigureError("flagged rows need finite distances")
 
     fig = Figure(figsize=(QQ_WIDTH, QQ_HEIGHT), layout="constrained")
     ax = fig.add_subplot()

@@ -29,6 +29,7 @@ from reportgen.figures.style import (
     OK,
     SLATE,
     TEAL,
+    FigureError,
     _check_mass,
     _check_thresholds,
     _label,
@@ -66,10 +67,10 @@ def _check_rules(rules: Sequence[tuple[str, str, float, float]]) -> list[tuple[s
     out = []
     for name, statement, lower, upper in rules:
         if statement not in ("above", "below", "between"):
-            raise ValueError(f"rule statement must be above, below or between, got {statement!r}")
+            raise FigureError(f"rule statement must be above, below or between, got {statement!r}")
         lo, hi = float(lower), float(upper)
         if not math.isfinite(lo) or (statement == "between" and not (math.isfinite(hi) and lo < hi)):
-            raise ValueError(f"rule {name!r} needs finite thresholds (lower < upper for a band)")
+            raise FigureError(f"rule {name!r} needs finite thresholds (lower < upper for a band)")
         out.append((str(name), statement, lo, hi))
     return out
 
@@ -117,12 +118,12 @@ def rho_history(
     """
     n = len(dates)
     if n == 0 or len(labels) != n:
-        raise ValueError("rho_history needs one label per date and at least one date")
+        raise FigureError("rho_history needs one label per date and at least one date")
     med, low, upp = (_vector(name, v, n) for name, v in (("medians", medians), ("lowers", lowers),
                                                           ("uppers", uppers)))
     rules_ = _check_rules(rules)
     if len(verdicts) != len(rules_) or any(len(row) != n for row in verdicts):
-        raise ValueError("verdicts needs one row per rule and one verdict per date")
+        raise FigureError("verdicts needs one row per rule and one verdict per date")
     mass = _check_mass(mass)
     x = np.array([(d - dates[0]).days for d in dates], dtype=float)
 
@@ -245,7 +246,7 @@ def change_intervals(
     """
     n = len(labels)
     if n == 0:
-        raise ValueError("change_intervals needs at least one pair")
+        raise FigureError("change_intervals needs at least one pair")
     runs = [tuple(_vector(name, v, n) for name, v in zip(("medians", "lowers", "uppers"), side, strict=True))
             for side in (old, new)]
     thr = _check_thresholds(thresholds)

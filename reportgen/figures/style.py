@@ -37,8 +37,21 @@ __all__ = [
     "RASTER_THRESHOLD",
     "SLATE",
     "TEAL",
+    "FigureError",
     "plain_text",
 ]
+
+
+
+class FigureError(ValueError):
+    """Inputs a figure cannot be drawn from (wrong shape, not finite, not increasing, ...).
+
+    A subclass of :class:`ValueError`, so callers that expect plain argument
+    errors keep working; the report catches this type per figure and shows a
+    placeholder instead, so one figure that cannot be drawn never stops a run.
+    The message is one short sentence that can be shown to a reader.
+    """
+
 
 # --------------------------------------------------------------------------
 # Palette and page geometry
@@ -315,6 +328,32 @@ def _pct(mass: float) -> str:
     return f"{p:.0f}%" if abs(p - round(p)) < 1e-9 else f"{p:.1f}%"
 
 
+def _display_offset(values: np.ndarray) -> float:
+    """A round number to draw *values* relative to; 0 when absolute ticks read well.
+
+    Values whose median is more than 1000 times their range share four or more
+    leading digits, where tick labels stop being readable (matplotlib's own
+    offset threshold, common practice).  The offset is the median rounded to
+    one power of ten above the range, so the relative ticks stay small.
+    """
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return 0.0
+    centre, spread = float(np.median(finite)), float(np.ptp(finite))
+    if spread <= 0.0 or abs(centre) <= 1e3 * spread:
+        return 0.0
+    return float(round(centre, -math.ceil(math.log10(spread))))
+
+
+def _offset_suffix(offset: float) -> str:
+    """The label suffix " − 1,000,000,000" of an axis drawn relative to *offset* (shortest exact digits)."""
+    digits = format(abs(offset), ",")
+    if digits.endswith(".0"):
+        digits = digits[:-2]
+    sign = "\u2212" if offset > 0 else "+"
+    return f" {sign} {digits}"
+
+
 def _decimals(span: float) -> int:
     """Decimals that show about two significant digits of *span*."""
     if not math.isfinite(span) or span <= 0:
@@ -330,23 +369,23 @@ def _decimals(span: float) -> int:
 def _vector(name: str, values: ArrayLike, n: int | None = None) -> np.ndarray:
     arr = np.asarray(values, dtype=float)
     if arr.ndim != 1:
-        raise ValueError(f"{name} must be one-dimensional, got shape {arr.shape}")
+        raise FigureError(f"{name} must be one-dimensional, got shape {arr.shape}")
     if n is not None and arr.size != n:
-        raise ValueError(f"{name} has {arr.size} values, expected {n}")
+        raise FigureError(f"{name} has {arr.size} values, expected {n}")
     return arr
 
 
 def _check_mass(mass: float, name: str = "mass") -> float:
     m = float(mass)
     if not 0.0 < m < 1.0:
-        raise ValueError(f"{name} must lie strictly between 0 and 1, got {mass!r}")
+        raise FigureError(f"{name} must lie strictly between 0 and 1, got {mass!r}")
     return m
 
 
 def _check_thresholds(thresholds: Sequence[float]) -> list[float]:
     out = [float(t) for t in thresholds]
     if not all(math.isfinite(t) for t in out):
-        raise ValueError("thresholds must be finite numbers")
+        raise FigureError("thresholds must be finite numbers")
     return sorted(set(out))
 
 
@@ -355,28 +394,31 @@ def _check_rope(rope: tuple[float, float] | None) -> tuple[float, float] | None:
         return None
     lo, hi = (float(v) for v in rope)
     if not (math.isfinite(lo) and math.isfinite(hi)) or lo >= hi:
-        raise ValueError(f"rope must be a finite (low, high) pair with low < high, got {rope!r}")
+        raise FigureError(f"rope must be a finite (low, high) pair with low < high, got {rope!r}")
     return lo, hi
 
 
 def _check_interval(interval: tuple[float, float], name: str = "interval") -> tuple[float, float]:
     lo, hi = (float(v) for v in interval)
     if not (math.isfinite(lo) and math.isfinite(hi)) or lo > hi:
-        raise ValueError(f"{name} must be a finite (low, high) pair with low <= high")
+        raise FigureError(f"{name} must be a finite (low, high) pair with low <= high")
     return lo, hi
 
 
-def _check_density(name: str, grid: np.ndarray, values: ArrayLike) -> np.ndarray:
+def _check_density(name: str, grid: np.ndarray, values: ArrayLike, *, allow_inf: bool = False) -> np.ndarray:
+    """Densities on *grid*; with *allow_inf*, ``+inf`` marks an integrable singularity (drawn off the top)."""
     arr = _vector(name, values, grid.size)
-    if not np.all(np.isfinite(arr)) or np.any(arr < 0):
-        raise ValueError(f"{name} must contain finite, non-negative densities")
+    usable = ~np.isnan(arr) & (arr != -np.inf) if allow_inf else np.isfinite(arr)
+    if not np.all(usable) or np.any(arr < 0):
+        rule = "non-negative densities (+inf allowed)" if allow_inf else "finite, non-negative densities"
+        raise FigureError(f"{name} must contain {rule}")
     return arr
 
 
 def _check_grid(grid: ArrayLike) -> np.ndarray:
     g = _vector("grid", grid)
     if g.size < 2 or not np.all(np.isfinite(g)) or np.any(np.diff(g) <= 0):
-        raise ValueError("grid must hold at least two finite, strictly increasing values")
+        raise FigureError("grid must hold at least two finite, strictly increasing values")
     return g
 
 
@@ -388,7 +430,7 @@ def row_positions(values: ArrayLike | None, n: int, name: str) -> np.ndarray:
     if raw.size == 0:
         return np.empty(0, dtype=np.intp)
     if raw.ndim != 1 or not np.issubdtype(raw.dtype, np.integer):
-        raise ValueError(f"{name} must be a one-dimensional array of integer positions")
+        raise FigureError(f"{name} must be a one-dimensional array of integer positions")
     if raw.min() < 0 or raw.max() >= n:
-        raise ValueError(f"{name} positions must lie in [0, {n - 1}]")
+        raise FigureError(f"{name} positions must lie in [0, {n - 1}]")
     return raw.astype(np.intp)

@@ -25,6 +25,7 @@ from reportgen.figures.style import (
     MIST,
     SLATE,
     TEAL,
+    FigureError,
     _check_mass,
     _check_rope,
     _check_thresholds,
@@ -104,12 +105,12 @@ def forest_plot(
     """
     n = len(labels)
     if n == 0:
-        raise ValueError("forest_plot needs at least one pair")
+        raise FigureError("forest_plot needs at least one pair")
     med = _vector("medians", medians, n)
     low = _vector("lowers", lowers, n)
     upp = _vector("uppers", uppers, n)
     if len(statuses) != n:
-        raise ValueError(f"statuses has {len(statuses)} values, expected {n}")
+        raise FigureError(f"statuses has {len(statuses)} values, expected {n}")
     status = [str(s).strip().lower() for s in statuses]
     sr = None if sample_r is None else _vector("sample_r", sample_r, n)
     thr = _check_thresholds(thresholds)
@@ -117,7 +118,7 @@ def forest_plot(
     mass = _check_mass(mass)
     both = np.isfinite(low) & np.isfinite(upp)
     if np.any(low[both] > upp[both]):
-        raise ValueError("every lower bound must be <= its upper bound")
+        raise FigureError("every lower bound must be <= its upper bound")
 
     per_row = 0.3 if n <= 10 else max(0.2, 0.3 - 0.005 * (n - 10))
     height = min(10.0, max(1.8, 1.0 + per_row * n))
@@ -252,11 +253,11 @@ def correlation_matrix(
     """
     k = len(labels)
     if k < 2:
-        raise ValueError("correlation_matrix needs at least two variables")
+        raise FigureError("correlation_matrix needs at least two variables")
     med = np.asarray(medians, dtype=float)
     exc = np.asarray(excludes_zero, dtype=bool)
     if med.shape != (k, k) or exc.shape != (k, k):
-        raise ValueError(f"medians and excludes_zero must have shape ({k}, {k})")
+        raise FigureError(f"medians and excludes_zero must have shape ({k}, {k})")
 
     m = k - 1  # rows are variables 1..k-1, columns variables 0..k-2
     values = np.full((m, m), np.nan)

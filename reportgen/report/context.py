@@ -9,6 +9,7 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import json
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -47,41 +48,75 @@ def _unit_suffix(unit: str) -> str:
     return f" ({unit})" if unit else ""
 
 
-def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, str]:
+def _drawn(draw: Callable[[], str], what: str, notes: list[str], *, width: float, height: float) -> str:
+    """The figure *draw* makes, as a data URI; a placeholder of its size (and a note) when it cannot be drawn.
+
+    Only the figures' own error is caught: anything else is a bug, and must not be hidden.
+    """
+    try:
+        return svg_data_uri(draw())
+    except figures.FigureError as exc:
+        reason = f"{what} could not be drawn: {exc}"
+        notes.append(reason)
+        return svg_data_uri(figures.unavailable_figure(reason, width=width, height=height))
+
+
+def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, Any]:
+    """The pair's figures as data URIs, and under "figure_notes" why any of them is a placeholder.
+
+    A figure whose inputs its function refuses is replaced by a placeholder of the same size that
+    says so and why, so one unusual pair never stops the report; "figure_notes" lists those
+    reasons (empty when every figure was drawn).
+    """
     document = spec.document
     thresholds = sorted({t for rule in document.rules for t in rule.thresholds})
     rope = (document.rope.lower, document.rope.upper)
     rho = result.rho
     highlight, highlight_labels = highlighted_rows(result)
-    scatter = figures.scatter_with_ellipses(
-        data.x, data.y, mean=result.mean_vector, cov=result.covariance,
-        x_label=result.x_label + _unit_suffix(result.x_unit),
-        y_label=result.y_label + _unit_suffix(result.y_unit),
-        seed=result.seed if result.seed is not None else 0,  # only picks which points a large scatter shows
-        highlight=highlight if highlight.size else None, highlight_labels=highlight_labels,
-        ellipses=result.model != "rank",  # rank correlation says nothing about an ellipse's shape
-    )
-    prior_on_grid = np.interp(rho.grid, result.prior_grid, result.prior_density)
-    check = result.crosscheck
-    overlay = check.applies and result.engine == "mcmc"
-    reference = np.interp(rho.grid, check.grid, check.density, left=0.0, right=0.0) if overlay else None
-    density = figures.rho_density(
-        rho.grid, rho.density, prior=prior_on_grid, interval=(rho.lower, rho.upper),
-        mass=document.summary.credible_mass, thresholds=thresholds, rope=rope,
-        reference=reference, reference_label="Exact (Jeffreys priors)",
-    )
-    panels = []
-    for name, summary in result.parameters.items():
-        symbol, meaning = parameter_title(name, result.model)
-        unit = {"mu_x": result.x_unit, "sigma_x": result.x_unit,
-                "mu_y": result.y_unit, "sigma_y": result.y_unit}.get(name, "")
-        title = f"{symbol}: {meaning.format(x=result.x_label, y=result.y_label)}"
-        panels.append(figures.DensityPanel(title=title, grid=summary.grid, density=summary.density,
-                                           interval=(summary.lower, summary.upper), unit=unit))
+    notes: list[str] = []
+
+    def scatter() -> str:
+        return figures.scatter_with_ellipses(
+            data.x, data.y, mean=result.mean_vector, cov=result.covariance,
+            x_label=result.x_label + _unit_suffix(result.x_unit),
+            y_label=result.y_label + _unit_suffix(result.y_unit),
+            seed=result.seed if result.seed is not None else 0,  # only picks which points a large scatter shows
+            highlight=highlight if highlight.size else None, highlight_labels=highlight_labels,
+            ellipses=result.model != "rank",  # rank correlation says nothing about an ellipse's shape
+        )
+
+    def density() -> str:
+        values = rho.grid + rho.offset
+        # a prior with a shape below 1 is +inf at rho = +-1: the figure draws that part off the top
+        prior_on_grid = np.interp(values, result.prior_grid, result.prior_density)
+        check = result.crosscheck
+        overlay = check.applies and result.engine == "mcmc"
+        reference = np.interp(values, check.grid, check.density, left=0.0, right=0.0) if overlay else None
+        return figures.rho_density(
+            values, rho.density, prior=prior_on_grid, interval=(rho.lower, rho.upper),
+            mass=document.summary.credible_mass, thresholds=thresholds, rope=rope,
+            reference=reference, reference_label="Exact (Jeffreys priors)",
+        )
+
+    def parameters() -> str:
+        panels = []
+        for name, summary in result.parameters.items():
+            symbol, meaning = parameter_title(name, result.model)
+            unit = {"mu_x": result.x_unit, "sigma_x": result.x_unit,
+                    "mu_y": result.y_unit, "sigma_y": result.y_unit}.get(name, "")
+            title = f"{symbol}: {meaning.format(x=result.x_label, y=result.y_label)}"
+            panels.append(figures.DensityPanel(title=title, grid=summary.grid, density=summary.density,
+                                               interval=(summary.lower, summary.upper), unit=unit,
+                                               offset=summary.offset, symbol=symbol))
+        return figures.parameter_densities(panels)
+
+    half = {"width": figures.HALF_WIDTH, "height": 3.0}
     return {
-        "scatter": svg_data_uri(scatter),
-        "rho_density": svg_data_uri(density),
-        "parameters": svg_data_uri(figures.parameter_densities(panels)) if len(panels) > 1 else "",
+        "scatter": _drawn(scatter, "The scatter plot", notes, **half),
+        "rho_density": _drawn(density, "The density of \u03c1", notes, **half),
+        "parameters": _drawn(parameters, "The parameter densities", notes,
+                             width=figures.FULL_WIDTH, height=1.9) if len(result.parameters) > 1 else "",
+        "figure_notes": notes,
     }
 
 
