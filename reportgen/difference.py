@@ -28,7 +28,6 @@ from reportgen.data import SufficientStats
 DIFFERENCE_POINTS = 4001
 _CHUNK = 1 << 22  # (a's points) x (values of d) evaluated at once: bounds the memory to tens of MB
 _NEGLIGIBLE = 1e-16  # a's points with less weight than this, relative to the largest, are left out
-R_LIMIT = 1.0 - 1e-9  # |r| kept below 1 so the exact posterior is defined (perfect correlations are refused upstream)
 
 
 @dataclass(frozen=True)
@@ -63,8 +62,8 @@ def posterior_from_stats(stats: SufficientStats, prior_a: float = 1.0, prior_b: 
                          source: str = "") -> Posterior:
     """The exact posterior of rho (Jeffreys' priors on the means and SDs, a stretched Beta(prior_a, prior_b)
     on rho) from a pair's sufficient statistics, as a density on its grid."""
-    r = float(np.clip(stats.sample_r, -R_LIMIT, R_LIMIT))
-    posterior = exact.exact_posterior(int(stats.n), r, prior_a, prior_b)
+    posterior = exact.exact_posterior(int(stats.n), stats.sample_r, prior_a, prior_b,
+                                      one_minus_abs_r=stats.one_minus_abs_r)
     return Posterior(source=source or f"exact posterior (Jeffreys' priors, n = {int(stats.n):,})",
                      grid=np.asarray(posterior.rho, dtype=float), density=np.asarray(posterior.density, dtype=float))
 

@@ -94,7 +94,7 @@ def test_model_check_columns_sit_before_the_rule_columns(planted_run: Path) -> N
     header = next(csv.reader((planted_run / "results.csv").open(encoding="utf-8")))
     start = header.index("model")
     assert tuple(header[start:start + len(MODEL_CHECK_COLUMNS)]) == MODEL_CHECK_COLUMNS
-    assert header[-1] == "p_strong"
+    assert header[-2:] == ["p_strong", "p_strong_mcse"]
     row = _rows(planted_run / "results.csv")[0]
     assert row["prior_sensitive"] in ("true", "false")
     assert 0.0 <= float(row["normality_p"]) <= 1.0 and 0.0 <= float(row["ppc_p_r"]) <= 1.0

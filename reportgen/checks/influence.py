@@ -35,12 +35,13 @@ from scipy.special import ndtr, ndtri
 from reportgen import exact
 from reportgen.checks import pair_rows
 from reportgen.crosscheck import exact_rule_probability
+from reportgen.data import sufficient_stats
 from reportgen.spec import Rule
 
 DIRECT_MAX_N = 60  # up to this many rows every leave-one-out posterior is computed directly
 GRID_POINTS = 41  # grid nodes in atanh(r) when interpolating
 NARROW_WIDTH = 1e-6  # a leave-one-out range narrower than this (in atanh(r)) needs only 3 nodes
-R_CLIP = 1.0 - 1e-9  # largest |r| handed to the exact engine
+R_CLIP = 1.0 - 1e-12  # largest |r| of a leave-one-out subsample handed to the exact engine (the data stage's bound)
 DOWNDATE_MIN_SHARE = 1e-2  # recompute a row's sums when downdating leaves less than this share of a sum
 RECHECK_MARGIN = 1e-5  # interpolated probabilities this close to a cut-off are computed directly
 MAX_RECHECKS = 200  # at most this many distinct r values are recomputed that way
@@ -172,7 +173,8 @@ def leave_one_out(x: np.ndarray, y: np.ndarray, row_numbers: np.ndarray, prior_a
         r_full, r_loo = _full_and_loo_r(x, y)
         if not np.isfinite(r_full):
             raise ValueError("x or y is constant: the correlation is undefined")
-        full = exact.exact_posterior(n, float(np.clip(r_full, -R_CLIP, R_CLIP)), prior_a, prior_b)
+        stats = sufficient_stats(x, y)
+        full = exact.exact_posterior(n, stats.sample_r, prior_a, prior_b, one_minus_abs_r=stats.one_minus_abs_r)
         median_full = float(full.median)
     else:
         median_full = float("nan")

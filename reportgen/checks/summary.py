@@ -21,6 +21,7 @@ from reportgen import exact
 from reportgen.checks.influence import Influence, leave_one_out
 from reportgen.checks.ppc import PredictiveCheck, predictive_check
 from reportgen.checks.shape import Discreteness, Shape, discreteness, shape_checks
+from reportgen.data import sufficient_stats
 from reportgen.spec import Checks, Rule
 
 # Codes written to results.csv's model_warnings column; scripts rely on them.
@@ -195,6 +196,6 @@ def _strong_influence(influence: Influence, x: np.ndarray, y: np.ndarray, rho_pr
     """Does one row alone move the median of rho by more than the threshold and the posterior SD?"""
     if not influence.applies or not np.isfinite(influence.max_shift):
         return bool(influence.applies and influence.flagged_rows and not np.isfinite(influence.max_shift))
-    r = float(np.clip(np.corrcoef(x, y)[0, 1], -1.0 + 1e-9, 1.0 - 1e-9))
-    sd = float(exact.exact_posterior(int(x.size), r, *rho_prior).sd)
+    stats = sufficient_stats(x, y)
+    sd = float(exact.exact_posterior(stats.n, stats.sample_r, *rho_prior, one_minus_abs_r=stats.one_minus_abs_r).sd)
     return bool(influence.max_shift > max(threshold, sd))

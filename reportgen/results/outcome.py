@@ -6,7 +6,6 @@ import dataclasses
 
 import numpy as np
 
-from reportgen import exact
 from reportgen.checks.sensitivity import (
     PriorVariant,
     Sensitivity,
@@ -19,7 +18,13 @@ from reportgen.data import PairData
 from reportgen.fit import PairFit, derive_seed
 from reportgen.models.rank import rank_posterior
 from reportgen.results.choice import choose, nu_is_heavy
-from reportgen.results.pair import R_LIMIT, PairResult, pair_result, pair_result_exact, pair_result_rank
+from reportgen.results.pair import (
+    PairResult,
+    exact_posterior_of,
+    pair_result,
+    pair_result_exact,
+    pair_result_rank,
+)
 from reportgen.spec import Spec
 
 PREDICTIVE_DRAWS = 1000
@@ -65,7 +70,7 @@ def _normal_rho_draws(normal: PairResult, fit: PairFit | None, data: PairData) -
     if fit is not None and fit.model == "normal":
         return np.ravel(fit.draws["rho"])
     a, b = data.pair.priors.rho.shapes
-    posterior = exact.exact_posterior(data.stats.n, float(np.clip(data.stats.sample_r, -R_LIMIT, R_LIMIT)), a, b)
+    posterior = exact_posterior_of(data.stats, a, b)
     return np.asarray(posterior.quantile((np.arange(PREDICTIVE_DRAWS) + 0.5) / PREDICTIVE_DRAWS), dtype=float)
 
 
@@ -78,8 +83,7 @@ def _sensitivity(spec: Spec, data: PairData, leading: PairResult, fit: PairFit |
                                           tuple(v for v in variants if v.width == 1.0), document.rules, mass,
                                           interval)
     if fit is None:  # the exact engine (or its fallback)
-        n, r = data.stats.n, float(np.clip(data.stats.sample_r, -R_LIMIT, R_LIMIT))
-        return sensitivity_from_posterior(lambda a, b: exact.exact_posterior(n, r, a, b), variants,
+        return sensitivity_from_posterior(lambda a, b: exact_posterior_of(data.stats, a, b), variants,
                                           document.rules, mass, interval)
     stats = data.stats
     return sensitivity_from_draws(fit.draws, data.pair.priors, stats.mean_x, stats.mean_y, stats.sd_x, stats.sd_y,

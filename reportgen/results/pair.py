@@ -13,14 +13,15 @@ from reportgen import exact, interpret, summaries
 from reportgen.checks.sensitivity import Sensitivity
 from reportgen.checks.summary import ModelChecks
 from reportgen.crosscheck import CrossCheck, cross_check, exact_only_check, exact_rule_probability
-from reportgen.data import PairData
+from reportgen.data import PairData, SufficientStats
 from reportgen.diagnostics import NOT_SAMPLED, STATUS_ORDER, Diagnosis, diagnose
 from reportgen.fit import PairFit, derive_seed
 from reportgen.models.rank import rank_posterior
 from reportgen.results import decisions
 from reportgen.spec import Spec
 
-R_LIMIT = 1.0 - 1e-9  # the exact engine's domain; the data stage refuses |r| this close to 1
+# what results and the record keep of a pair's sums; rss (the residual sum of squares) carries 1 - |r|
+SUFFICIENT_KEYS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy", "rss")
 PARAMETER_BOUNDS = {"rho": (-1.0, 1.0), "tau": (-1.0, 1.0), "sigma_x": (0.0, None), "sigma_y": (0.0, None),
                     "nu": (1.0, None)}
 
@@ -166,6 +167,7 @@ def summarise_parameter(name: str, draws: np.ndarray, mass: float, kind: str) ->
     # stop being readable; matplotlib's own offset threshold, common practice) is tabulated relative to a
     # round number near its median: one power of ten above the draws' range, so the axis reads e.g.
     # "mu - 1,000,000,000" with small ticks. Bounded parameters keep absolute grids: their bounds are.
+    # (The scatter plot applies the same rule to the data, in reportgen.figures.style._display_offset.)
     if lower_bound is None and upper_bound is None and spread > 0.0 and abs(centre) > 1e3 * spread:
         decimals = -int(np.ceil(np.log10(spread)))
         offset = float(round(centre, decimals))
@@ -249,6 +251,11 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
     )
 
 
+def exact_posterior_of(stats: SufficientStats, a: float, b: float) -> exact.ExactPosterior:
+    """The exact posterior of rho from a pair's sums, with 1 - |r| taken without cancellation."""
+    return exact.exact_posterior(stats.n, stats.sample_r, a, b, one_minus_abs_r=stats.one_minus_abs_r)
+
+
 def no_reference_check(rho_draws: np.ndarray, shapes: tuple[float, float], mass: float) -> CrossCheck:
     """For a model without an exact reference: nothing compared, no exact Bayes factor.
 
@@ -275,8 +282,7 @@ def pair_result_exact(spec: Spec, data: PairData, sampler_failure: str = "") -> 
     """
     started = time.perf_counter()
     a, b = data.pair.priors.rho.shapes
-    r = float(np.clip(data.stats.sample_r, -R_LIMIT, R_LIMIT))
-    posterior = exact.exact_posterior(data.stats.n, r, a, b)
+    posterior = exact_posterior_of(data.stats, a, b)
     diagnosis = NOT_SAMPLED
     if sampler_failure:
         diagnosis = dataclasses.replace(NOT_SAMPLED, status="fail",
@@ -444,7 +450,8 @@ def _assemble(
         covariance=covariance, mean_vector=mean_vector, crosscheck=check,
         evidence_sentence=interpret.evidence_sentence(check.log_bf10, model, rho_a=a, rho_b=b),
         crosscheck_sentence=check_sentence, engine=engine,
-        sufficient=tuple((k, float(getattr(data.stats, k))) for k in ("n", "mean_x", "mean_y", "sxx", "syy", "sxy")),
+        sufficient=tuple((k, float(getattr(data.stats, k))) for k in SUFFICIENT_KEYS
+                         if getattr(data.stats, k) is not None),
         interval_excludes_zero=rho.lower > 0 or rho.upper < 0, model=model, r2_interval=r2_interval,
     )
 

@@ -100,7 +100,8 @@ def stats_of(entry: dict[str, Any]) -> SufficientStats:
     """A record pair's sufficient statistics as the data stage's type."""
     values = entry["sufficient_statistics"]
     return SufficientStats(n=int(values["n"]), mean_x=float(values["mean_x"]), mean_y=float(values["mean_y"]),
-                           sxx=float(values["sxx"]), syy=float(values["syy"]), sxy=float(values["sxy"]))
+                           sxx=float(values["sxx"]), syy=float(values["syy"]), sxy=float(values["sxy"]),
+                           rss=float(values["rss"]) if "rss" in values else None)
 
 
 def rho_prior_shapes(snapshot: RunSnapshot, key: str) -> tuple[float, float]:
