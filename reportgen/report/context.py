@@ -95,7 +95,7 @@ def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, An
         return figures.rho_density(
             values, rho.density, prior=prior_on_grid, interval=(rho.lower, rho.upper),
             mass=document.summary.credible_mass, thresholds=thresholds, rope=rope,
-            reference=reference, reference_label="Exact (Jeffreys priors)",
+            reference=reference, reference_label="Exact (same priors)",
         )
 
     def parameters() -> str:
@@ -208,11 +208,12 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "status": result.status,
         "bf10": interpret.format_bayes_factor(result.crosscheck.log_bf10),
         "evidence_sentence": result.evidence_sentence,
-        "savage_dickey": ("cannot be estimated here, because the posterior has almost no mass at \u03c1 = 0 "
-                          "(or the spec's priors are not close to Jeffreys')"
-                          if not np.isfinite(result.crosscheck.savage_dickey_bf10)
-                          else "gives " + interpret.format_bayes_factor(
-                              float(np.log(result.crosscheck.savage_dickey_bf10)))),
+        "savage_dickey": interpret.savage_dickey_sentence(
+            savage_dickey_bf10=result.crosscheck.savage_dickey_bf10,
+            relative_mcse=result.crosscheck.savage_dickey_relative_mcse,
+            reference_log_bf10=result.crosscheck.reference_log_bf10,
+            jeffreys_log_bf10=result.crosscheck.log_bf10 if result.model == "normal" else float("nan"),
+        ) if result.engine == "mcmc" else "",
         "exact": {
             "applies": result.crosscheck.applies,
             "mean": _rho(result.crosscheck.exact_mean),

@@ -226,11 +226,11 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
                                                  rho_diagnostics.ess_bulk) for rule in document.rules}
     if fit.model == "normal":
         check = cross_check(
-            rho_draws, rho_diagnostics.mcse_mean, rho_diagnostics.ess_bulk, data.stats.n, data.stats.sample_r,
-            data.pair.priors, document.rules, mass, probabilities,
+            rho_draws, rho_diagnostics.mcse_mean, rho_diagnostics.ess_bulk, data.stats,
+            data.pair.priors, document.rules, mass, probabilities, rule_mcses=mcses,
         )
     else:  # the exact reference is the normal model's; another model has none to compare with
-        check = no_reference_check(rho_draws, data.pair.priors.rho.shapes, mass)
+        check = no_reference_check(rho_draws, data.pair.priors.rho.shapes, mass, rho_diagnostics.ess_bulk)
     if check.applies and not check.within_error:
         reason = "the sampler and the exact reference for \u03c1 differ by more than the allowance"
         diagnosis = dataclasses.replace(
@@ -256,12 +256,13 @@ def exact_posterior_of(stats: SufficientStats, a: float, b: float) -> exact.Exac
     return exact.exact_posterior(stats.n, stats.sample_r, a, b, one_minus_abs_r=stats.one_minus_abs_r)
 
 
-def no_reference_check(rho_draws: np.ndarray, shapes: tuple[float, float], mass: float) -> CrossCheck:
+def no_reference_check(rho_draws: np.ndarray, shapes: tuple[float, float], mass: float,
+                       ess: float = float("nan")) -> CrossCheck:
     """For a model without an exact reference: nothing compared, no exact Bayes factor.
 
     The Savage-Dickey ratio of the draws still estimates this model's own Bayes factor for rho = 0.
     """
-    from reportgen.crosscheck import savage_dickey_bf10
+    from reportgen.crosscheck import savage_dickey_bf10, savage_dickey_relative_mcse
 
     values = np.ravel(rho_draws)
     prior_zero = float(np.exp(exact.log_stretched_beta_pdf(np.array([0.0]), *shapes))[0])
@@ -269,7 +270,8 @@ def no_reference_check(rho_draws: np.ndarray, shapes: tuple[float, float], mass:
     return CrossCheck(
         applies=False, reference_priors=False, exact_mean=nan, exact_sd=nan, exact_lower=nan, exact_upper=nan,
         mean_gap=0.0, mean_allowed=0.0, rule_gaps=(), log_bf10=nan,
-        savage_dickey_bf10=savage_dickey_bf10(values, prior_zero), grid=np.zeros(0), density=np.zeros(0))
+        savage_dickey_bf10=savage_dickey_bf10(values, prior_zero), grid=np.zeros(0), density=np.zeros(0),
+        savage_dickey_relative_mcse=savage_dickey_relative_mcse(values, ess))
 
 
 def pair_result_exact(spec: Spec, data: PairData, sampler_failure: str = "") -> PairResult:
