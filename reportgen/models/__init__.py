@@ -6,7 +6,8 @@ model) and ``build_model(inputs)`` (the PyMC model of one structure); the fit st
 compiles each structure once and maps the standardised draws back to the data's units.
 The rank model has a one-dimensional posterior computed by quadrature
 (``rank.rank_posterior``) and needs no sampler. The exact reference of the normal
-model is ``reportgen.exact``.
+model is ``normal_reference.reference_posterior``, under the priors the sampler used (it reduces to
+``reportgen.exact``, Jeffreys' closed form, under Jeffreys' priors).
 """
 
 from __future__ import annotations

@@ -195,7 +195,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
             "required": interpret.format_required(rule.required),
             "verdict": rule.verdict,
             "sentence": rule.sentence,
-            "mcse": "" if rule.mcse == 0.0 else f"{rule.mcse:.3f}",
+            "mcse": "" if rule.mcse == 0.0 else f"{rule.mcse:.2g}",
             "borderline": rule.borderline,
         } for rule in result.rules],
         "parameter_rows": rows,
