@@ -90,3 +90,8 @@ def test_expected_false_discoveries_is_the_sum_of_one_minus_p() -> None:
 
 def test_no_reading_for_a_single_verdict() -> None:
     assert decisions.many_decisions_sentence(decisions.many_decisions([(0.99, True)])) == ""
+
+
+def test_one_met_verdict_reads_in_the_singular() -> None:
+    sentence = decisions.many_decisions_sentence(decisions.many_decisions([(0.96, True), (0.40, False)]))
+    assert "1 of the 2 verdicts is met" in sentence and "0.04" in sentence

@@ -98,8 +98,12 @@ def many_decisions_sentence(summary: ManyDecisions) -> str:
                 "still hold, as its probability says.")
     wrong = summary.expected_wrong
     shown = "less than 0.01" if wrong < 0.01 else f"{wrong:.2f}"
+    if summary.met == 1:
+        return (f"Read together: 1 of the {summary.verdicts} verdicts is met. If the model and priors are right, "
+                f"the chance that it is wrong is {shown}, one minus its probability; with more rules and pairs "
+                "examined, the expected number of wrong met verdicts is the sum of these (Newton et al. 2004).")
     return (f"Read together: {summary.met} of the {summary.verdicts} verdicts are met. If the model and priors are "
-            f"right, the expected number of those that are wrong is {shown} (the sum of one minus each met "
+            f"right, the expected number of wrong ones among them is {shown} (the sum of one minus each met "
             f"verdict's probability; an expected false discovery rate of {summary.expected_false_share:.1%}; "
             "Newton et al. 2004). Unlike a per-rule requirement, this grows with the number of rules and pairs "
             "examined.")
