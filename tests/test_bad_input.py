@@ -182,9 +182,12 @@ def test_spec_listing_a_pair_twice(tmp_path: Path) -> None:
                   "remove one of them")
 
 
-def test_spec_pair_set_repeating_an_explicit_pair(tmp_path: Path) -> None:
+def test_spec_pair_set_may_hold_a_listed_pair(tmp_path: Path) -> None:
+    """A listed pair inside a pair set is fitted once, with its own settings; the set's matrix shows it."""
     body = PAIR_ALPHA_B + '[[pair_sets]]\nname = "trio"\ncolumns = ["c", "b", "alpha"]\n'
-    check_refuses(project(tmp_path, body), "`pair_sets[0] (trio)`", "already listed at `pairs[0]`")
+    result = invoke("check", project(tmp_path, body))
+    assert result.exit_code == 0, result.output
+    assert "3 pair" in result.output
 
 
 @pytest.mark.parametrize(("table", "key", "fix"), [

@@ -70,15 +70,18 @@ def test_rule_needs_its_bounds() -> None:
         parse("[[rules]]\nname = \"r\"\nstatement = \"above\"\n")
 
 
-def test_pair_sets_expand_to_all_pairs_and_duplicates_are_refused() -> None:
+def test_pair_sets_expand_to_all_pairs_and_may_hold_a_listed_pair() -> None:
     doc = parse_spec_text(MINIMAL.replace("[[pairs]]\nx = \"a\"\ny = \"b\"\n", "")
                           + "[[pair_sets]]\nname = \"g\"\ncolumns = [\"a\", \"b\", \"c\", \"d\"]\n",
                           Path("s.toml"))
     pairs = expand_pairs(doc)
     assert len(pairs) == 6  # 4 choose 2
     assert {p.pair_set for p in pairs} == {"g"}
+    # the listed pair (a, b) is fitted once, as listed, and shown in the set's matrix
+    (pair,) = expand_pairs(parse("[[pair_sets]]\nname = \"g\"\ncolumns = [\"b\", \"a\"]\n"))
+    assert (pair.x, pair.y, pair.pair_set, pair.pair_sets) == ("a", "b", "", ("g",))
     with pytest.raises(SpecError, match="already listed"):
-        expand_pairs(parse("[[pair_sets]]\nname = \"g\"\ncolumns = [\"b\", \"a\"]\n"))
+        expand_pairs(parse("[[pairs]]\nx = \"b\"\ny = \"a\"\n"))
 
 
 def test_a_column_paired_with_itself_is_refused() -> None:

@@ -85,8 +85,36 @@ def _choose_sheet(path: Path, book: Any, sheet: str) -> str:
         return sheet
     if len(sheets) == 1:
         return sheets[0]
+    # The hint once named the first sheet, often a notes or cover sheet: name the first that looks like data.
+    likely = next((name for name in sheets if _has_numeric_column(book[name])), None)
+    if likely is None:
+        hint = ("none of them has a column of numbers under a header row; check that this is the "
+                "workbook with the data")
+    else:
+        hint = ("the first with a column of numbers is " + f"`{likely}`: sheet = "
+                + '"' + likely.replace("\\", "\\\\").replace('"', '\\"') + '"')
     raise DataError(f"{path}: the workbook has {len(sheets)} sheets ({listed}); name the one to use "
-                    "with data.sheet in the spec, e.g. sheet = " + repr(sheets[0]).replace("'", '"'))
+                    f"with data.sheet in the spec; {hint}")
+
+
+SHEET_HINT_ROWS = 50  # rows looked at per sheet for the hint: enough to pass a header, cheap on big sheets
+
+
+def _has_numeric_column(sheet: Any) -> bool:
+    """Whether a number (not a boolean) stands in a row below the sheet's first non-empty row."""
+    try:
+        header_seen = False
+        for count, row in enumerate(sheet.iter_rows(values_only=True)):
+            if count >= SHEET_HINT_ROWS:
+                break
+            if not header_seen:
+                header_seen = any(value is not None for value in row)
+                continue
+            if any(isinstance(value, int | float) and not isinstance(value, bool) for value in row):
+                return True
+    except Exception:  # a damaged sheet is no hint; reading it for real reports it
+        return False
+    return False
 
 
 def _sheet_values(sheet: Any) -> tuple[list[list[object]], set[tuple[int, int]]]:

@@ -122,13 +122,14 @@ def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, An
 
 def matrix_figures(results: RunResults, spec: Spec) -> list[dict[str, str]]:
     out = []
+    shown = {pair.key: pair.pair_sets for pair in spec.pairs}  # a listed pair can also stand in a set's matrix
     for pair_set in spec.document.pair_sets:
         columns = list(pair_set.columns)
         k = len(columns)
         medians = np.full((k, k), np.nan)
         excludes = np.zeros((k, k), dtype=bool)
         for result in results.pairs:
-            if result.pair_set != pair_set.name:
+            if result.pair_set != pair_set.name and pair_set.name not in shown.get(result.key, ()):
                 continue
             i, j = columns.index(result.x), columns.index(result.y)
             i, j = max(i, j), min(i, j)

@@ -33,8 +33,11 @@ class PairSpec(_Frozen):
     y: str
     label: str
     priors: Priors
-    pair_set: str = ""
+    pair_set: str = ""  # the pair set this pair came from; "" for a listed pair
     model: ModelName = "normal"
+    # Every pair set whose matrix shows this pair: its own, and for a listed pair each set that holds both
+    # its columns (the listed pair is fitted once, with its own settings, and drawn in those matrices too).
+    pair_sets: tuple[str, ...] = ()
 
     @property
     def key(self) -> str:
@@ -105,9 +108,15 @@ def _merge_priors(base: Priors, overrides: PriorOverrides) -> Priors:
 
 
 def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[PairSpec, ...]:
-    """Explicit pairs first, then every pair among each pair set's columns."""
+    """Explicit pairs first, then every pair among each pair set's columns.
+
+    A pair set may hold a listed pair: that pair is fitted once, as listed (label, model, priors), and
+    named in ``pair_sets`` so the set's matrix still shows it. The same pair listed twice, or in two pair
+    sets, is refused: which settings it should have would be a guess.
+    """
     pairs: list[PairSpec] = []
     seen: dict[frozenset[str], str] = {}
+    listed: dict[frozenset[str], int] = {}  # a listed pair's position in ``pairs``
     # the key names the pair's results row, draws file, report section and seed record: it must be unique
     keys: dict[str, tuple[str, str, str]] = {}
     prefix = f"{source}: " if source is not None else ""
@@ -118,12 +127,19 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
             raise SpecError(f"{prefix}`{where}`: a pair needs two different columns, got `{x}` as both "
                             "x and y; change one of them")
         identity = frozenset((x, y))
+        if pair_set and identity in listed:
+            index = listed[identity]
+            shown = pairs[index]
+            if pair_set not in shown.pair_sets:
+                pairs[index] = shown.model_copy(update={"pair_sets": (*shown.pair_sets, pair_set)})
+            return
         if identity in seen:
             raise SpecError(f"{prefix}`{where}`: the pair ({x}, {y}) is already listed at `{seen[identity]}`; "
                             "remove one of them")
         seen[identity] = where
         merged = _merge_priors(document.priors, overrides)
-        pair = PairSpec(x=x, y=y, label=label, priors=merged, pair_set=pair_set, model=model or document.model)
+        pair = PairSpec(x=x, y=y, label=label, priors=merged, pair_set=pair_set, model=model or document.model,
+                        pair_sets=(pair_set,) if pair_set else ())
         if pair.key in keys:
             other_x, other_y, other_where = keys[pair.key]
             raise SpecError(f"{prefix}`{where}`: the pair ({x}, {y}) would be named \"{pair.key}\", like the pair "
@@ -131,6 +147,8 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
                             "results row and draws file; rename a column whose name contains \" vs \" in the "
                             "data, or remove one of the two pairs")
         keys[pair.key] = (x, y, where)
+        if not pair_set:
+            listed[identity] = len(pairs)
         pairs.append(pair)
 
     for index, entry in enumerate(document.pairs):

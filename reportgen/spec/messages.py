@@ -10,7 +10,7 @@ from typing import Any
 
 from pydantic import BaseModel, ValidationError
 
-from reportgen.spec.schema import RULE_NAME_PATTERN, SAMPLER_MINIMUM_REASONS, SpecDocument
+from reportgen.spec.schema import RULE_NAME_PATTERN, SAMPLER_MINIMUM_REASONS, WRONG_TOML_TYPE, SpecDocument
 
 
 def _as_model(annotation: Any) -> type[BaseModel] | None:
@@ -132,6 +132,9 @@ def describe_problem(problem: Any, location: tuple[Any, ...]) -> str:
         detail = "should be a whole number, without a decimal point"
     elif kind in ("float_type", "float_parsing"):
         detail = "should be a number"
+    elif kind == WRONG_TOML_TYPE:
+        detail = str(problem["msg"])
+        got_text = ""
     elif kind == "finite_number":
         detail = "should be a finite number, not nan or inf"
     elif kind == "too_short":
@@ -186,6 +189,9 @@ def describe_validation_error(error: ValidationError, source: Path) -> str:
         table = _as_model(getattr(_field_at(location), "annotation", None))
         message = (f"the [{path}] table is required but missing; add it" if table is not None
                    else f"`{path}` is required but missing; add it")
+    elif kind == WRONG_TOML_TYPE:  # "`sampler.draws` = "1000" is text; write a number without quotes: 1000"
+        ctx = first.get("ctx") or {}
+        message = f"`{path}{ctx.get('suffix', '')}` = {first['msg']}"
     elif not location:
         message = describe_problem(first, location)
     elif location[-1] == "[key]":  # a [variables] key (a column name): quoting it whole could fill the screen

@@ -8,11 +8,13 @@ that is silently ignored changes a report without anyone noticing.
 from __future__ import annotations
 
 import datetime as dt
+import math
 import re
 import typing
 from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, field_validator, model_validator
+from pydantic_core import PydanticCustomError
 
 RULE_NAME_PATTERN = r"^[a-z][a-z0-9_]{0,39}$"
 MAX_DRAWS = 200_000
@@ -71,8 +73,101 @@ class _Frozen(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
 
+# A value of the wrong TOML type that pydantic would quietly convert ("1000" to 1000, 1 to true, 1000.0 to
+# 1000) is refused with this error type; messages.describe_validation_error words it from its context.
+WRONG_TOML_TYPE = "wrong_toml_type"
+
+
+def _toml_literal(value: Any) -> str:
+    """``value`` as it would be written in TOML, for messages."""
+    if isinstance(value, bool):
+        return str(value).lower()
+    if isinstance(value, str):
+        return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    return repr(value)
+
+
+def _as_number_text(text: str) -> str | None:
+    """The number a text spells ("1000", " 2.5 "), written without quotes; None when it spells none."""
+    try:
+        number = float(text.strip().replace("_", ""))
+    except ValueError:
+        return None
+    if not math.isfinite(number):
+        return None  # "nan" and "inf" are left to pydantic, which refuses them as numbers anyway
+    return text.strip().replace("_", "")
+
+
+def _wrong_toml_type(value: Any, annotation: Any, suffix: str = "") -> PydanticCustomError | None:
+    """The error for a TOML value that pydantic would convert to the field's type instead of refusing.
+
+    Only conversions are caught here; a value pydantic refuses anyway ("many" for a number) keeps pydantic's
+    message. Accepted on purpose: a whole number for a number field (``ess_min = 400``), and a date as text
+    (a run record keeps its resolved spec as JSON, where dates are text). Refused: text for a number or a
+    boolean, a number for a boolean, and a number with a decimal point for a whole-number field, even when
+    it is whole (1000.0), so that an int field takes exactly what a TOML integer is.
+    """
+    if isinstance(value, list | tuple):
+        element = next((_tuple_element(t) for t in _types_in(annotation) if _tuple_element(t) is not None), None)
+        if element is None:
+            return None
+        for index, item in enumerate(value):
+            problem = _wrong_toml_type(item, element, f"{suffix}[{index}]")
+            if problem is not None:
+                return problem
+        return None
+    types = _scalar_types(annotation)
+    wants_bool = bool in types
+    wants_float = float in types
+    wants_int = int in types
+    wants_text = str in types or any(isinstance(t, str) for t in types)  # str, or a Literal of words
+    found = _toml_literal(value)
+    if isinstance(value, str) and not wants_text and (wants_bool or wants_int or wants_float):
+        if wants_bool and value.strip().lower() in ("true", "false", "yes", "no", "on", "off", "0", "1",
+                                                     "t", "f", "y", "n"):
+            fix = "write true or false without quotes"
+        else:
+            number = _as_number_text(value)
+            if number is None:
+                return None
+            fix = f"write a number without quotes: {number}"
+        return PydanticCustomError(WRONG_TOML_TYPE, "{found} is text; {fix}",
+                                   {"found": found, "kind": "text", "fix": fix, "suffix": suffix})
+    if isinstance(value, int | float) and not isinstance(value, bool) and wants_bool and not (
+            wants_int or wants_float):
+        return PydanticCustomError(WRONG_TOML_TYPE, "{found} is a number; {fix}",
+                                   {"found": found, "kind": "a number", "fix": "write true or false",
+                                    "suffix": suffix})
+    if isinstance(value, float) and wants_int and not wants_float and math.isfinite(value) and value.is_integer():
+        return PydanticCustomError(WRONG_TOML_TYPE, "{found} is a number with a decimal point; {fix}",
+                                   {"found": found, "kind": "a number with a decimal point",
+                                    "fix": f"write a whole number without the decimal point: {int(value)}",
+                                    "suffix": suffix})
+    return None
+
+
+def _scalar_types(annotation: Any) -> set[Any]:
+    """The types a field takes as a single value: those of ``_types_in`` not inside a tuple, list or dict."""
+    if typing.get_origin(annotation) in (tuple, list, dict):
+        return set()
+    found = {annotation}
+    for arg in typing.get_args(annotation):
+        found |= _scalar_types(arg)
+    return found
+
+
+def _tuple_element(annotation: Any) -> Any:
+    """The element type of ``tuple[X, ...]`` (through Annotated), or None."""
+    if typing.get_origin(annotation) is tuple:
+        args = typing.get_args(annotation)
+        if len(args) == 2 and args[1] is Ellipsis:
+            return args[0]
+    return None
+
+
 class _Strict(_Frozen):
-    """A table of the spec as the user writes it: no unknown keys, no nan/inf, no true/false as a number."""
+    """A table of the spec as the user writes it: no unknown keys, no nan/inf, no true/false as a number,
+    and no value of another TOML type converted to the field's type ("1000" for a number)."""
 
     model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
@@ -83,6 +178,10 @@ class _Strict(_Frozen):
         types = _types_in(field.annotation) if field is not None else set()
         if isinstance(value, bool) and types & {int, float} and bool not in types:
             raise ValueError(f"should be a number, not {str(value).lower()}")
+        if field is not None:
+            problem = _wrong_toml_type(value, field.annotation)
+            if problem is not None:
+                raise problem
         if isinstance(value, str) and str in types:
             control = CONTROL_CHARACTERS.search(value)
             if control:
@@ -135,6 +234,14 @@ class RhoPrior(_Strict):
     def _uniform_has_unit_shapes(self) -> RhoPrior:
         if self.family == "uniform" and (self.a != 1.0 or self.b != 1.0):
             raise ValueError("a uniform prior takes no `a` or `b`; use family = \"beta\"")
+        if self.family == "beta":
+            # Without this a beta prior missing its shapes silently became Beta(1, 1), the uniform prior.
+            missing = [key for key in ("a", "b") if key not in self.model_fields_set]
+            if missing:
+                keys = " and ".join(f"`{key}`" for key in missing)
+                absent = "is not given; add it" if len(missing) == 1 else "are not given; add them"
+                raise ValueError(f"family = \"beta\" needs both shapes `a` and `b`, and {keys} {absent}, "
+                                 "e.g. a = 2 and b = 2 (a = b = 1 is the uniform prior)")
         return self
 
     @property
