@@ -250,7 +250,7 @@ def _one_line(exc: BaseException) -> str:
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 # Columns of results.csv that hold text; every other column holds numbers that reportgen formatted.
 TEXT_COLUMNS = frozenset({"pair", "x", "y", "status", "rope_decision", "interval", "status_reasons", "engine",
-                          "model", "influential_rows", "prior_sensitive", "model_warnings"})
+                          "model", "influential_rows", "prior_sensitive", "model_warnings", "borderline_rules"})
 
 
 def neutralised(text: str) -> str:
