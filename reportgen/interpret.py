@@ -381,7 +381,8 @@ def savage_dickey_sentence(*, savage_dickey_bf10: float, relative_mcse: float, r
             parts.append(text)
     else:
         parts.append("The Savage\u2013Dickey density ratio cannot be estimated from the draws for this pair "
-                     "(it needs posterior mass near \u03c1 = 0).")
+                     "(it is estimated only when \u03c1 = 0 lies within the central 90% of the draws, where a "
+                     "kernel estimate of the density there is trustworthy).")
         if reference:
             parts.append(f"By quadrature under the spec's own priors BF\u2081\u2080 is "
                          f"{format_bayes_factor(reference_log_bf10)}.")

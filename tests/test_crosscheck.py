@@ -49,10 +49,26 @@ def check_of(draws: np.ndarray, stats: SufficientStats, priors: Priors) -> objec
 def test_savage_dickey_from_draws_recovers_the_quadrature_bayes_factor() -> None:
     """Dickey (1971): BF10 = prior(0) / posterior(0). Here the posterior density at 0 comes from a
     kernel estimate of draws, an independent route to the exact integral's Bayes factor."""
-    for n, r in [(20, 0.3), (50, 0.1), (200, -0.12)]:
+    for n, r in [(20, 0.3), (50, 0.1), (200, -0.07)]:
         bf_exact = math.exp(exact_posterior(n, r).log_bf10)
         bf_draws = savage_dickey_bf10(exact_draws(n, r), 0.5)
         assert bf_draws == pytest.approx(bf_exact, rel=0.1), (n, r)
+
+
+def test_in_the_tail_the_kernel_estimate_is_biased_so_no_ratio_is_given() -> None:
+    """With 0 in the posterior's far tail (P(rho < 0) about 0.5% at n = 51, r = 0.36) a kernel estimate of
+    the density at 0 from 4,000 draws is biased upwards by smoothing (Silverman 1986, sec. 3.3). Its
+    expected value, the exact density convolved with the kernel (scipy quad), exceeds the density itself
+    (measured: by 7.6%), which is why the ratio is only estimated where 0 is in the bulk of the draws."""
+    from scipy import integrate, stats
+
+    posterior = exact_posterior(51, 0.36)
+    draws = exact_draws(51, 0.36, size=4000)
+    bandwidth = math.sqrt(float(stats.gaussian_kde(draws).covariance[0, 0]))
+    expected, _ = integrate.quad(lambda x: float(posterior.density_at(x)) * stats.norm.pdf(x, 0.0, bandwidth),
+                                 -1.0, 1.0, points=[0.0], limit=200)
+    assert expected / float(posterior.density_at(0.0)) - 1.0 > 0.05
+    assert math.isnan(savage_dickey_bf10(draws, 0.5))
 
 
 def test_savage_dickey_refuses_when_zero_is_outside_the_draws() -> None:
