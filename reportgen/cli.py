@@ -224,7 +224,7 @@ def with_sampler_options(func: F) -> F:
 
 @main.command("run")
 @click.argument("spec_path", metavar="SPEC", type=click.Path(path_type=Path))
-@click.option("--out", "out", type=click.Path(path_type=Path), required=True,
+@click.option("-o", "--out", "out", type=click.Path(path_type=Path), required=True,
               help="Output folder; {date} and {period} are filled from the report date (runs/{period}).")
 @click.option("--previous", "previous", type=click.Path(path_type=Path), default=None,
               help="An earlier run's output folder: the report gains a section on what changed since it.")
@@ -254,7 +254,7 @@ def check_command(spec_path: Path) -> None:
 
 
 @main.command("demo")
-@click.option("--out", "out", type=click.Path(path_type=Path), default=Path("reportgen-demo"),
+@click.option("-o", "--out", "out", type=click.Path(path_type=Path), default=Path("demo_output"),
               show_default=True, help="Output folder; {date} and {period} are filled from the report date.")
 @with_sampler_options
 @user_errors
@@ -350,7 +350,8 @@ def history_command(run_dirs: tuple[Path, ...], out: Path) -> None:
               help="A pair of columns to analyse; repeat for more pairs.")
 @click.option("-o", "--output", "output", type=click.Path(path_type=Path), required=True,
               help="Where to write the spec.")
-@click.option("--title", default="Correlation report", show_default=True)
+@click.option("--title", default="Correlation report", show_default=True,
+              help="The report title written into the spec.")
 @click.option("--force", is_flag=True, help="Overwrite an existing spec file.")
 @user_errors
 def init_command(data_path: Path, pairs: tuple[tuple[str, str], ...], output: Path, title: str,
