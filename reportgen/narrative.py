@@ -28,24 +28,39 @@ EXACT_SDS = SdPrior(family="jeffreys")
 
 
 def status_banner(total: int, failed: list[str], warned: list[str], *, engine: str = "mcmc") -> dict[str, str]:
-    """The line on page one that says whether every fit can be relied on; ``engine`` is the spec's."""
+    """The line on page one that says whether every fit can be relied on; ``engine`` is the spec's.
+
+    The exact engine runs no sampler, so it never claims that sampler checks passed: they do not apply.
+    """
+    plural = "s" if total != 1 else ""
     if failed:
         names = "; ".join(failed)
         return {"level": "fail", "text": (
-            f"{len(failed)} of {total} pair{'s' if total != 1 else ''} did not pass the convergence "
-            f"checks ({names}). Their numbers are shown but must not be relied on until re-run.")}
+            f"{len(failed)} of {total} pair{plural} failed the sampler checks ({names}). Their numbers are "
+            "shown but their verdicts are not judged: do not rely on them until the pairs are re-run.")}
+    if engine == "exact" and not warned:
+        return {"level": "pass", "text": (
+            f"{'All ' if total != 1 else 'The '}{total if total != 1 else ''}{' ' if total != 1 else ''}pair{plural} "
+            f"{'were' if total != 1 else 'was'} computed by quadrature with the exact engine. No sampler ran, so "
+            "the sampler checks do not apply.")}
     if warned:
         names = "; ".join(warned)
+        count = len(warned)
         return {"level": "warn", "text": (
-            f"All {total} fits converged; {len(warned)} carr{'ies' if len(warned) == 1 else 'y'} a caution "
-            f"({names}): see the diagnostics of {'that pair' if len(warned) == 1 else 'those pairs'}.")}
-    if engine == "exact":
-        return {"level": "pass", "text": (
-            f"All {total} pair{'s' if total != 1 else ''} were computed exactly by quadrature (the exact engine), "
-            "so there is no iterative fit to check.")}
+            f"No pair failed; {count} of {total} pair{plural} carr{'ies' if count == 1 else 'y'} a warning "
+            f"({names}): see the sampler checks on {'that pair' if count == 1 else 'those pairs'}' page"
+            f"{'' if count == 1 else 's'}.")}
     return {"level": "pass", "text": (
-        f"All {total} fit{'s' if total != 1 else ''} passed every convergence check "
+        f"All {total} fit{plural} passed every sampler check "
         "(R-hat, effective sample size, divergences, E-BFMI).")}
+
+
+def draft_banner(draws: int, chains: int, ess_min: float) -> str:
+    """What a quick draft is, for page one and the methods: too few draws for a final report."""
+    return (f"Draft: a quick look with {draws:,} draws in each of {chains} chain{'s' if chains != 1 else ''}, "
+            f"judged against a relaxed effective-sample-size threshold of {ess_min:g}. Probabilities near a "
+            "requirement are uncertain and the verdicts are provisional; re-run without --quick before any "
+            "result is used.")
 
 
 def used_priors(priors: Priors, engine: str) -> Priors:
@@ -306,9 +321,35 @@ def record_pair_rows(reproducible: dict[str, Any]) -> list[dict[str, str]]:
         "rows_used": f"{row['rows_used']:,}",
         "rows_dropped": f"{row['rows_dropped']:,}",
         "seed": "\u2014" if row["seed"] is None else str(row["seed"]),
-        "rhat_max": "\u2014" if row["rhat_max"] is None else f"{row['rhat_max']:.3f}",
+        "rhat_max": "\u2014" if row["rhat_max"] is None else f"{row['rhat_max']:.4f}",
         "ess_bulk_min": "\u2014" if row["ess_bulk_min"] is None else f"{row['ess_bulk_min']:,.0f}",
         "ess_tail_min": "\u2014" if row["ess_tail_min"] is None else f"{row['ess_tail_min']:,.0f}",
         "status": row["status"],
         "draws_sha256": "\u2014" if row["draws_sha256"] is None else row["draws_sha256"][:16] + "\u2026",
     } for row in reproducible["pairs"]]
+
+
+def summary_table_note(*, mass: str, interval_name: str, rho_prior: str, any_sampled: bool, any_failed: bool,
+                       any_rank: bool) -> str:
+    """The note under page one's table: what each column holds, which priors the Bayes factor uses."""
+    parts = [
+        f"Credible interval: the {mass} {interval_name} of the posterior of \u03c1.",
+        "Rule columns: the posterior probability that the statement holds, and whether it reaches the "
+        "requirement; \u201cborderline\u201d: within two Monte Carlo standard errors of it.",
+    ]
+    if any_failed:
+        parts.append("\u201cNot judged\u201d: the sampler failed for that pair, so no verdict is read from its "
+                     "probabilities.")
+    parts.append(
+        "Bayes factor: BF\u2081\u2080, how many times more likely the data are with a correlation than without, "
+        "or BF\u2080\u2081 = 1/BF\u2081\u2080 where the data favour no correlation; computed exactly with "
+        f"Jeffreys' priors for the means and SDs and {rho_prior} for \u03c1"
+        + ("; for rank pairs, from Kendall's \u03c4." if any_rank else "."))
+    if any_sampled:
+        parts.append("Sampler checks: convergence (R-hat, effective sample size, divergences, E-BFMI) and "
+                     "agreement with the exact reference; they say whether the computation can be trusted, not "
+                     "whether a rule is met. \u201cNot run\u201d: the posterior was computed by quadrature.")
+    else:
+        parts.append("Sampler checks: \u201cnot run\u201d, since every posterior was computed by quadrature and "
+                     "no sampler ran.")
+    return " ".join(parts)

@@ -157,7 +157,7 @@ def test_failed_diagnostics_exit_1_and_say_so_on_page_one(tmp_path: Path) -> Non
     assert result.exit_code == 1, result.output
     latest = tmp_path / "demo" / "2026-11"
     first_page = PdfReader(str(latest / "report.pdf")).pages[0].extract_text()
-    assert "did not pass the convergence" in first_page
+    assert "failed the sampler checks" in first_page
     assert "Since the previous run" in first_page
     assert (latest / "changes.csv").is_file() and not (tmp_path / "demo" / "2026-09" / "changes.csv").exists()
     for name in ("changes/changes.pdf", "changes/changes.csv", "history/history.pdf", "history/history.csv"):
@@ -230,7 +230,7 @@ def test_a_crashing_sampler_fails_one_pair_not_the_run(project: Path, monkeypatc
     assert rows["a vs c"]["status"] == "fail" and "simulated sampler crash" in rows["a vs c"]["status_reasons"]
     assert rows["a vs b"]["status"] == "pass"
     first_page = PdfReader(str(out / "report.pdf")).pages[0].extract_text()
-    assert "did not pass" in first_page
+    assert "failed the sampler checks" in first_page and "not judged" in first_page
 
 
 def test_ctrl_c_exits_130_and_changes_nothing(project: Path, finished_run: Path,

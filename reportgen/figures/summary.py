@@ -274,17 +274,23 @@ def correlation_matrix(
 
     label_size = 7.5 if m <= 10 else 6.5
     label_pt = 95.0
-    col_labels = [_label(s, label_pt, label_size, max_lines=1) for s in labels[:-1]]
-    row_labels = [_label(s, label_pt, label_size, max_lines=1) for s in labels[1:]]
+    # long names wrap onto up to three lines rather than being cut after a few words
+    col_labels = [_label(s, label_pt, label_size, max_lines=3) for s in labels[:-1]]
+    row_labels = [_label(s, label_pt, label_size, max_lines=3) for s in labels[1:]]
 
     # Size the figure from the measured label extents so that the cells come
     # out (nearly) square without a fixed aspect ratio, which constrained
     # layout handles poorly.
     def longest(texts: list[str]) -> float:
-        return max(_text_width_pt(t.replace("\\$", "$"), label_size) for t in texts) / 72.0
+        return max(_text_width_pt(line.replace("\\$", "$"), label_size)
+                   for t in texts for line in t.split("\n")) / 72.0
+
+    def deepest(texts: list[str]) -> float:
+        return max(t.count("\n") for t in texts) * label_size * 1.2 / 72.0
 
     left = longest(row_labels) + 0.2
-    bottom = longest(col_labels) * math.sin(math.radians(40)) + 0.35
+    # a rotated label of several lines reaches further down by its extra lines' height
+    bottom = longest(col_labels) * math.sin(math.radians(40)) + deepest(col_labels) + 0.35
     right = 0.95  # colourbar with ticks and label
     top = 0.1 if m >= 4 else 0.35  # small matrices put the note above
     cell = min(0.9, max(0.3, 4.4 / m))

@@ -165,7 +165,8 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
             "sd": _fmt(summary.sd, 3),
             "median": _fmt(summary.median, 4),
             "interval": f"{_fmt(summary.lower, 4)} to {_fmt(summary.upper, 4)}",
-            "rhat": f"{d.rhat:.3f}" if d else "\u2014",
+            # four decimals, so that a value just over the 1.01 limit (1.0103) shows why it failed
+            "rhat": f"{d.rhat:.4f}" if d else "\u2014",
             "ess_bulk": f"{d.ess_bulk:,.0f}" if d else "\u2014",
             "ess_tail": f"{d.ess_tail:,.0f}" if d else "\u2014",
             "mcse_mean": _fmt(d.mcse_mean, 2) if d else "0 (exact)",
@@ -189,16 +190,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "rope_probability": interpret.format_probability(result.rope_probability),
         "paragraph": result.paragraph,
         "rope_sentence": result.rope_sentence,
-        "rules": [{
-            "name": rule.name,
-            "statement": rule.statement,
-            "probability": interpret.format_probability(rule.probability),
-            "required": interpret.format_required(rule.required),
-            "verdict": rule.verdict,
-            "sentence": rule.sentence,
-            "mcse": "" if rule.mcse == 0.0 else f"{rule.mcse:.2g}",
-            "borderline": rule.borderline,
-        } for rule in result.rules],
+        "rules": rule_cells(result),
         "parameter_rows": rows,
         "reference": {
             "r": f"{ref.r:.3f}".replace("-", "\u2212"),
@@ -207,6 +199,8 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
             "mass": f"{mass:.0%}",
         },
         "status": result.status,
+        "sampler_checks": sampler_checks(result),
+        "sampled": result.engine == "mcmc" and result.model != "rank",
         "bf10": interpret.format_bayes_factor(result.crosscheck.log_bf10),
         "evidence_sentence": result.evidence_sentence,
         "savage_dickey": interpret.savage_dickey_sentence(
@@ -229,6 +223,85 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "model": result.model,
         "checks": checks_context(result),
     }
+
+
+# A failed fit's probabilities are shown, but no verdict is read from them.
+NOT_JUDGED = "not judged: sampler failed"
+SAMPLER_LABELS = {"pass": "passed", "warn": "warn", "fail": "failed"}
+
+
+def sampler_checks(result: PairResult) -> dict[str, str]:
+    """The pair's sampler-check badge: its CSS class and its word; "not run" where no sampler ran.
+
+    The badge is about the computation, not the client's question, so it never reads like a verdict; a pair
+    computed by quadrature (exact engine or rank model) shows "not run" rather than a pass it never earned.
+    """
+    sampled = result.engine == "mcmc" and result.model != "rank"
+    if not sampled and result.status == "pass":
+        return {"css": "none", "label": "not run"}
+    return {"css": result.status, "label": SAMPLER_LABELS.get(result.status, result.status)}
+
+
+def rule_cells(result: PairResult) -> list[dict[str, Any]]:
+    """Each rule's probability and verdict as shown; a failed fit's verdicts are greyed and not judged."""
+    failed = result.status == "fail"
+    cells = []
+    for rule in result.rules:
+        if failed:
+            verdict, css = NOT_JUDGED, "verdict-void"
+        else:
+            verdict, css = rule.verdict, "verdict-met" if rule.verdict == "met" else "verdict-not-met"
+        cells.append({
+            "name": rule.name,
+            "statement": rule.statement,
+            "probability": interpret.format_probability(rule.probability),
+            "required": interpret.format_required(rule.required),
+            "verdict": verdict,
+            "verdict_class": css,
+            "judged": not failed,
+            "sentence": rule.sentence,
+            "mcse": "" if rule.mcse == 0.0 else f"{rule.mcse:.2g}",
+            "borderline": rule.borderline and not failed,
+        })
+    return cells
+
+
+def spec_without_comments(text: str) -> str:
+    """The spec as the client should read it: whole-line comments (the starter's notes) and the blank lines
+    they leave in runs are dropped; every setting line stays exactly as written.
+
+    Only lines whose first non-blank character is ``#`` go: a ``#`` later in a line may sit inside a string,
+    and telling the two apart needs a TOML parser's view, so such lines are kept whole.
+    """
+    kept: list[str] = []
+    for line in text.splitlines():
+        if line.lstrip().startswith("#"):
+            continue
+        if not line.strip() and (not kept or not kept[-1].strip()):
+            continue
+        kept.append(line)
+    while kept and not kept[-1].strip():
+        kept.pop()
+    return "\n".join(kept) + "\n" if kept else ""
+
+
+def _shared_rho_prior(spec: Spec) -> str:
+    """The prior on rho by name when every pair shares it, else a pointer to each pair's own."""
+    shapes = {pair.priors.rho.shapes for pair in spec.pairs}
+    if len(shapes) == 1:
+        return interpret.rho_prior_name(*shapes.pop())
+    return "each pair's own prior (see its page)"
+
+
+def contents_entries(results: RunResults, pairs: list[dict[str, Any]], compared: bool) -> list[dict[str, Any]]:
+    """The printed table of contents: the report's sections in order, each pair under its own title."""
+    entries = [{"title": "Summary of results", "anchor": "summary", "level": 1}]
+    if compared:
+        entries.append({"title": "Since the previous run", "anchor": "since-previous", "level": 1})
+    entries += [{"title": p["title"], "anchor": p["anchor"], "level": 2} for p in pairs]
+    entries += [{"title": title, "anchor": anchor, "level": 1} for title, anchor in
+                (("Methods", "methods"), ("Cautions", "cautions"), ("Appendix: run record", "appendix"))]
+    return entries
 
 
 def _anchor(key: str) -> str:
@@ -284,14 +357,26 @@ def build_context(
     failed = results.failed
     warned = [p for p in results.pairs if p.status == "warn"]
     titles = {result.key: (result.title, p["anchor"]) for result, p in zip(results.pairs, pairs, strict=True)}
+    draft = bool(getattr(document.report, "draft", False))
     return {
         "meta": document_meta(spec),
+        "draft": draft,
+        "draft_text": narrative.draft_banner(document.sampler.draws, document.sampler.chains,
+                                             document.diagnostics.ess_min) if draft else "",
+        "footer": document.report.client or document.report.title,
+        "contents": contents_entries(results, pairs, comparison is not None),
+        "compact": getattr(document.report, "layout", "full") == "compact",
         "banner": narrative.status_banner(len(results.pairs), [p.title for p in failed],
                                           [p.title for p in warned], engine=document.engine),
         "status": results.status,
         "mass": f"{mass:.0%}",
         "interval_name": "highest-density interval" if document.summary.interval == "hdi"
         else "equal-tailed credible interval",
+        "table_note": narrative.summary_table_note(
+            mass=f"{mass:.0%}",
+            interval_name="highest-density" if document.summary.interval == "hdi" else "equal-tailed",
+            rho_prior=_shared_rho_prior(spec), any_sampled=any(p["sampled"] for p in pairs),
+            any_failed=bool(failed), any_rank=any(p.model == "rank" for p in results.pairs)),
         "rules": [{
             "name": rule.name,
             "statement": interpret.rule_statement(rule),
@@ -302,7 +387,8 @@ def build_context(
         "summary_rows": [{
             "anchor": p["anchor"], "title": p["title"], "n": p["n"], "median": p["median"],
             "interval": p["interval"], "p_positive": p["p_positive"], "rules": p["rules"],
-            "status": p["status"], "bf10": p["bf10"], "model": p["checks"]["model_short"],
+            "status": p["status"], "sampler_checks": p["sampler_checks"], "bf10": p["bf10"],
+            "model": p["checks"]["model_short"],
         } for p in pairs],
         "model_warnings": run_checks_context(results, _anchor),
         "prior_sensitive": [p.title for p in results.pairs if p.sensitivity and p.sensitivity.prior_sensitive],
@@ -310,9 +396,11 @@ def build_context(
                         "probability": interpret.format_probability(rule.probability),
                         "required": interpret.format_required(rule.required), "mcse": f"{rule.mcse:.3f}"}
                        for result, p in zip(results.pairs, pairs, strict=True) for rule in result.rules
-                       if rule.borderline],
+                       if rule.borderline and result.status != "fail"],
+        # a failed fit's verdicts are not judged, so they do not count among the decisions read together
         "many_decisions": decisions.many_decisions_sentence(decisions.many_decisions(
-            [(rule.probability, rule.verdict == "met") for result in results.pairs for rule in result.rules])),
+            [(rule.probability, rule.verdict == "met") for result in results.pairs if result.status != "fail"
+             for rule in result.rules])),
         "forest": svg_data_uri(forest),
         "matrices": matrix_figures(results, spec),
         "pairs": pairs,
@@ -324,9 +412,13 @@ def build_context(
         )),
         "cautions": narrative.cautions(),
         "record_rows": narrative.record_rows(record["reproducible"]),
-        "record_pairs": narrative.record_pair_rows(record["reproducible"]),
+        "record_pairs": [{**row, "pair": titles.get(row["pair"], (row["pair"], ""))[0]}
+                         for row in narrative.record_pair_rows(record["reproducible"])],
         "versions": record["reproducible"]["versions"],
-        "spec_text": spec.source_text,
+        "spec_text": spec_without_comments(spec.source_text),
+        "spec_note": ("The spec file with its comment lines left out; its SHA-256 above is that of the file as "
+                      "written. Command-line overrides, if any, are listed in the table above and replace these "
+                      "values."),
         "record_json": json.dumps(record["reproducible"], indent=2, ensure_ascii=False),
         "since_previous": None if comparison is None else since_previous_context(comparison, titles),
     }
