@@ -39,6 +39,7 @@ from reportgen.spec import (
     load_spec,
     with_engine,
     with_model,
+    with_quick,
     with_sampler_overrides,
 )
 from reportgen.spec.loading import spec_from_resolved
@@ -62,11 +63,15 @@ def _choice(option: str, value: str | None, options: tuple[str, ...]) -> None:
         raise SpecError(f"{option} must be one of {', '.join(options)}; got {value!r}")
 
 
-def _with_overrides(spec: Spec, engine: str | None, model: str | None, **sampler: int | None) -> Spec:
-    """The overrides in the command line's order (sampler, then engine, then model; see ``cli._load``)."""
+def _with_overrides(spec: Spec, engine: str | None, model: str | None, quick: bool = False,
+                    **sampler: int | None) -> Spec:
+    """The overrides in the command line's order (sampler, quick, engine, then model; see ``cli._load``)."""
     _choice("engine", engine, ENGINES)
     _choice("model", model, MODELS)
-    return with_model(with_engine(with_sampler_overrides(spec, **sampler), engine), model)
+    spec = with_sampler_overrides(spec, **sampler)
+    if quick:
+        spec = with_quick(spec, given=[key for key, value in sampler.items() if value is not None])
+    return with_model(with_engine(spec, engine), model)
 
 
 def frame_csv(frame: pd.DataFrame) -> bytes:
@@ -129,6 +134,7 @@ def run(
     engine: str | None = None,
     model: str | None = None,
     previous: str | Path | None = None,
+    quick: bool = False,
 ) -> pd.DataFrame:
     """Run a spec as ``reportgen run SPEC --out OUT`` does, and return its results table.
 
@@ -146,6 +152,8 @@ def run(
         The command line's overrides (default None: the spec's value).
     previous
         An earlier run's output folder, as ``--previous`` (default None).
+    quick
+        A quick draft, as ``--quick``: short chains, thresholds they can reach, every page marked DRAFT.
 
     Returns
     -------
@@ -159,7 +167,7 @@ def run(
         SpecError, DataError, OutputError or ReportAssetError with the command line's message.
     """
     loaded = spec if isinstance(spec, Spec) else load_spec(spec)
-    chosen = _with_overrides(loaded, engine, model, seed=seed, draws=draws, tune=tune, chains=chains)
+    chosen = _with_overrides(loaded, engine, model, quick, seed=seed, draws=draws, tune=tune, chains=chains)
     chosen = runner.with_report_date(chosen)  # pinned first, so {date} in out and the report agree
     folder_out = resolve_out(Path(out), chosen.document.report.date or dt.date.today())
     command = ["reportgen.run", str(chosen.source_path), "--out", str(folder_out),

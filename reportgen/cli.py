@@ -162,10 +162,34 @@ def _progress_printer() -> Callable[[str, int, int], None] | None:
     return update
 
 
-def _load(spec_path: Path, engine: str | None = None, model: str | None = None, **overrides: int | None) -> Any:
-    from reportgen.spec import load_spec, with_engine, with_model, with_sampler_overrides
+def _load(spec_path: Path, engine: str | None = None, model: str | None = None, quick: bool = False,
+          **overrides: int | None) -> Any:
+    from reportgen.spec import load_spec, with_engine, with_model, with_quick, with_sampler_overrides
 
-    return with_model(with_engine(with_sampler_overrides(load_spec(spec_path), **overrides), engine), model)
+    spec = with_sampler_overrides(load_spec(spec_path), **overrides)
+    if quick:
+        spec = with_quick(spec, given=[key for key, value in overrides.items() if value is not None])
+        sampler, thresholds = spec.document.sampler, spec.document.diagnostics
+        with _stdout_may_fail():
+            click.echo(f"quick draft: {sampler.draws} draws in each of {sampler.chains} chains, judged against "
+                       f"ESS at least {thresholds.ess_min:g} and R-hat below {thresholds.rhat_max:g}; the report "
+                       "is marked DRAFT on every page")
+    spec = with_model(with_engine(spec, engine), model)
+    _say_replaced_priors(spec)
+    return spec
+
+
+def _say_replaced_priors(spec: Any) -> None:
+    """The exact engine integrates the means and SDs out under Jeffreys' priors: say so when the spec set others."""
+    if spec.document.engine != "exact":
+        return
+    replaced = sorted({f"{pair.priors.means.family} means" for pair in spec.pairs if pair.priors.means.family != "flat"}
+                      | {f"{pair.priors.sds.family.replace('_', '-')} SDs" for pair in spec.pairs
+                         if pair.priors.sds.family != "jeffreys"})
+    if replaced:
+        with _stdout_may_fail():
+            click.echo(f"exact engine: the spec's priors on the {' and '.join(replaced)} are replaced by Jeffreys' "
+                       "priors (flat means, 1/sigma SDs); the prior on rho is kept")
 
 
 def _report_outcome(outcome: Any) -> None:
@@ -209,6 +233,9 @@ sampler_options = [
     click.option("--chains", type=int, default=None, help="Override sampler.chains."),
     click.option("--engine", type=click.Choice(["mcmc", "exact"]), default=None,
                  help="Override the spec's engine: mcmc (sampler) or exact (quadrature, rho only)."),
+    click.option("--quick", "quick", is_flag=True, default=False,
+                 help="A quick draft: 200 draws in each of 2 chains (unless --draws or --chains say otherwise), "
+                      "judged against what so few draws can reach; every page is marked DRAFT."),
     click.option("--model", type=click.Choice(["normal", "student_t", "rank", "auto"]), default=None,
                  help="Fit every pair with this model: normal, student_t (robust to outlying rows), rank "
                       "(Kendall's tau, for ordinal or tied data) or auto (normal and robust; the checks "

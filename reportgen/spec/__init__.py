@@ -19,6 +19,7 @@ from reportgen.spec.loading import (
     parse_spec_text,
     with_engine,
     with_model,
+    with_quick,
     with_sampler_overrides,
 )
 from reportgen.spec.messages import (
@@ -151,5 +152,6 @@ __all__ = [
     "parse_spec_text",
     "with_engine",
     "with_model",
+    "with_quick",
     "with_sampler_overrides",
 ]

@@ -8,6 +8,7 @@ import itertools
 import os
 import stat
 import tomllib
+from collections.abc import Iterable
 from pathlib import Path
 from typing import Any
 
@@ -321,6 +322,32 @@ def with_sampler_overrides(spec: Spec, **overrides: int | None) -> Spec:
         raise SpecError(f"--{format_location(location)}: {problem}") from None
     document = spec.document.model_copy(update={"sampler": sampler})
     noted = tuple((f"sampler.{key}", str(value)) for key, value in chosen.items())
+    return spec.model_copy(update={"document": document, "overrides": (*spec.overrides, *noted)})
+
+
+# A quick look: few draws, judged against what those draws can give. The effective sample size a short run
+# can reach is a share of its draws (a quarter here); R-hat from two short chains is noisier, so its limit
+# widens to 1.05 (a common limit for exploratory runs). The report is marked as a draft on every page.
+QUICK_SAMPLER = {"draws": 200, "tune": 200, "chains": 2}
+QUICK_ESS_SHARE = 0.25
+QUICK_RHAT_MAX = 1.05
+
+
+def with_quick(spec: Spec, given: Iterable[str] = ()) -> Spec:
+    """A copy of ``spec`` for a quick draft: short chains (except the settings in ``given``, which the user
+    set on the command line), thresholds they can reach, and the report marked as a draft."""
+    given = set(given)
+    document = spec.document
+    sampler = document.sampler.model_copy(update={k: v for k, v in QUICK_SAMPLER.items() if k not in given})
+    reach = QUICK_ESS_SHARE * sampler.chains * sampler.draws
+    diagnostics = document.diagnostics.model_copy(update={
+        "ess_min": min(document.diagnostics.ess_min, reach),
+        "rhat_max": max(document.diagnostics.rhat_max, QUICK_RHAT_MAX)})
+    report = document.report.model_copy(update={"draft": True})
+    document = document.model_copy(update={"sampler": sampler, "diagnostics": diagnostics, "report": report})
+    noted = (("quick", "true"), ("diagnostics.ess_min", f"{diagnostics.ess_min:g}"),
+             ("diagnostics.rhat_max", f"{diagnostics.rhat_max:g}"),
+             *((f"sampler.{k}", str(getattr(sampler, k))) for k in QUICK_SAMPLER if k not in given))
     return spec.model_copy(update={"document": document, "overrides": (*spec.overrides, *noted)})
 
 

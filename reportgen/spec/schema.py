@@ -199,6 +199,10 @@ class ReportMeta(_Strict):
         "Confidential: prepared for the named client only.")
     logo: PathText = ""
     templates: PathText = ""
+    # a draft (set by --quick, or by hand) says so on every page: its verdicts are provisional
+    draft: bool = False
+    # "full": every figure and table of each pair; "compact": each pair on about one page
+    layout: Literal["full", "compact"] = "full"
 
 
 class DataSource(_Strict):
