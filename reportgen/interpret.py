@@ -10,7 +10,8 @@ from reportgen.spec import Rope, Rule
 
 # Cohen (1988), Statistical Power Analysis for the Behavioral Sciences, 2nd ed.,
 # sec. 3.2: r = 0.1 small, 0.3 medium, 0.5 large. Benchmarks, not laws of nature.
-STRENGTH_BANDS = ((0.1, "negligible"), (0.3, "weak"), (0.5, "moderate"), (1.01, "strong"))
+# Cohen's own words are used, so that they never share a word with the evidence grades of a Bayes factor.
+STRENGTH_BANDS = ((0.1, "negligible"), (0.3, "small"), (0.5, "medium"), (1.01, "large"))
 
 
 def printed_size(rho: float) -> float:
@@ -20,13 +21,13 @@ def printed_size(rho: float) -> float:
 
 
 def strength_word(rho: float) -> str:
-    """Our word for Cohen's (1988) band of the printed value: negligible below small, then weak (small),
-    moderate (medium) and strong (large)."""
+    """Cohen's (1988) word for the band of the printed value: small, medium or large, and negligible
+    below his small benchmark."""
     size = printed_size(rho)
     for bound, word in STRENGTH_BANDS:
         if size < bound:
             return word
-    return "strong"
+    return "large"
 
 
 def direction_word(rho: float) -> str:
@@ -98,9 +99,19 @@ def rule_sentence(rule: Rule, probability: float) -> str:
             f"the rule \u201c{name}\u201d asks for at least {format_required(rule.required_probability)}, ")
     if verdict == "met":
         return base + "so it is met."
+    against = format_probability(1.0 - probability)
     if probability <= 1.0 - rule.required_probability:
-        return base + "so it is not met, and the data point the other way."
-    return base + "so it is not met: the data do not settle it either way."
+        return (base + f"so it is not met, and the data point the other way (probability {against} that it does "
+                "not hold).")
+    # the wording follows both sides: below one half the data lean against the statement, however mildly
+    if probability < 0.25:
+        return (base + f"so it is not met: the data point the other way (probability {against} that it does not "
+                "hold), though not as firmly as the rule asks.")
+    if probability < 0.5:
+        return base + f"so it is not met: the data lean against it (probability {against} that it does not hold)."
+    if probability < 0.75:
+        return base + "so it is not met: the data do not settle it, leaning slightly towards it."
+    return base + "so it is not met: the data lean towards it but fall short of the requirement."
 
 
 def rope_sentence(rope: Rope, probability: float, decision: str, mass: float,
@@ -151,9 +162,9 @@ def pair_paragraph(
     if lower > 0 or upper < 0:
         parts.append(f"The interval lies wholly on the {'positive' if lower > 0 else 'negative'} side of zero. "
                      f"Its median is a {strength} {direction} association on Cohen's (1988) benchmarks for the "
-                     "behavioural sciences (0.1, 0.3 and 0.5 mark small, medium and large, read here as weak, "
-                     "moderate and strong), a reading of the median alone; what is strong enough depends on the "
-                     "application.")
+                     "behavioural sciences (0.1, 0.3 and 0.5 mark small, medium and large"
+                     + ("; below 0.1 is negligible" if strength == "negligible" else "")
+                     + "), a reading of the median alone; how large is large enough depends on the application.")
     else:
         # A posterior is not flat over its interval: say that the values inside are not equally supported.
         parts.append(f"The interval includes zero: the data leave room for no linear association, and also for "
@@ -177,7 +188,7 @@ def _percent(share: float) -> str:
 
 
 def describe(rho: float) -> str:
-    """A value of rho in words, e.g. "a moderate negative correlation (−0.42)"."""
+    """A value of rho in words, e.g. "a medium negative correlation (−0.42)"."""
     if printed_size(rho) < 0.1:
         return f"a negligible correlation ({format_rho(rho)})"
     return f"a {strength_word(rho)} {direction_word(rho)} correlation ({format_rho(rho)})"
@@ -244,9 +255,22 @@ def prior_text_sds(family: str, units: str, scale: float, nu: float) -> str:
     return f"\u03c3\u2c7c ~ Half-normal(scale {scale_text})"
 
 
-# Jeffreys (1961), Theory of Probability, 3rd ed., Appendix B: grades of evidence at
-# Bayes factors of about 3, 10, 30 and 100 (the words are ours).
-EVIDENCE_GRADES = ((3.0, "weak"), (10.0, "moderate"), (30.0, "strong"), (100.0, "very strong"))
+# Jeffreys (1961), Theory of Probability, 3rd ed., Appendix B: grades of evidence against the null by its
+# odds K, at powers of 10^(1/2); his words (from memory) are "not worth more than a bare mention" (grade 1),
+# "substantial" (2), "strong" (3), "very strong" (4) and "decisive" (5). Here they grade the larger of BF10
+# and BF01 = 1/BF10, so the same scale reads evidence for either side.
+EVIDENCE_GRADES = ((10 ** 0.5, "not worth more than a bare mention"), (10.0, "substantial"),
+                   (10 ** 1.5, "strong"), (100.0, "very strong"))
+DECISIVE = "decisive"
+
+
+def evidence_grade(log_bf10: float) -> tuple[int, str]:
+    """Jeffreys' (1961) grade (1 to 5) and his word for the evidence, for whichever side the data favour."""
+    size = abs(log_bf10)
+    for grade, (bound, word) in enumerate(EVIDENCE_GRADES, start=1):
+        if size < math.log(bound):
+            return grade, word
+    return 5, DECISIVE
 
 
 SUPERSCRIPT = str.maketrans("0123456789-.", "\u2070\u00b9\u00b2\u00b3\u2074\u2075\u2076\u2077\u2078\u2079\u207b\u00b7")
@@ -298,17 +322,28 @@ def evidence_sentence(log_bf10: float, model: str = "normal", *, rho_a: float = 
     alternative = (f"the alternative that spreads {parameter} as {rho_prior_name(rho_a, rho_b)} does over "
                    "(\u22121, 1)")
     null = f"no correlation ({parameter} = 0)"
-    favoured, other = (alternative, null) if log_bf10 > 0 else (null, alternative)
-    grade = "extreme"
-    for bound, word in EVIDENCE_GRADES:
-        if size < math.log(bound):
-            grade = word
-            break
+    for_null = log_bf10 < 0
+    favoured, other = (null, alternative) if for_null else (alternative, null)
+    grade, word = evidence_grade(log_bf10)
     factor = format_bayes_factor(size)
     basis = ("from the normal approximation to Kendall's statistic (van Doorn et al. 2018)" if model == "rank"
              else "with Jeffreys' priors for the means and SDs")
-    return (f"The Bayes factor BF\u2081\u2080 is {format_bayes_factor(log_bf10)}: the data are {factor} times as "
-            f"likely under {favoured} as under {other}, {grade} evidence on Jeffreys' grades ({basis}).")
+    named = (f"BF\u2080\u2081 = 1/BF\u2081\u2080 is {factor}, the evidence for no correlation" if for_null
+             else f"The Bayes factor BF\u2081\u2080 is {factor}")
+    side = "for no correlation" if for_null else "against no correlation"
+    return (f"{named[0].upper()}{named[1:]}: the data are {factor} times as likely under {favoured} as under "
+            f"{other}, {basis}. On Jeffreys' (1961, Appendix B) scale this is grade {grade} of 5, evidence "
+            f"{side} that he calls \u201c{word}\u201d.")
+
+
+def bayes_factor_cell(log_bf10: float) -> str:
+    """Page one's Bayes factor: BF10 when the data favour a correlation, else BF01 = 1/BF10, so the number
+    shown is at least 1 and says which side it favours; a dash when there is none."""
+    if not math.isfinite(log_bf10):
+        return "\u2014"
+    if log_bf10 < 0:
+        return f"BF\u2080\u2081 {format_bayes_factor(-log_bf10)}"
+    return f"BF\u2081\u2080 {format_bayes_factor(log_bf10)}"
 
 
 def crosscheck_sentence(*, applies: bool, reference_priors: bool, mean_gap: float, mean_allowed: float,
@@ -395,11 +430,28 @@ def savage_dickey_sentence(*, savage_dickey_bf10: float, relative_mcse: float, r
         parts.append(f"Under Jeffreys' priors for the means and SDs the exact BF\u2081\u2080 is "
                      f"{format_bayes_factor(jeffreys_log_bf10)}, so the spec's priors on the means and SDs "
                      f"{effect}.")
+        parts.append(bayes_factors_reading(reference_log_bf10, jeffreys_log_bf10))
     elif jeffreys and estimate:
         parts.append(f"Under Jeffreys' priors for the means and SDs the exact BF\u2081\u2080 is "
                      f"{format_bayes_factor(jeffreys_log_bf10)}; the difference from the estimate reflects the "
                      "spec's priors on the means and SDs as well as Monte Carlo error.")
     return " ".join(parts)
+
+
+def bayes_factors_reading(spec_log_bf10: float, jeffreys_log_bf10: float) -> str:
+    """Whether two Bayes factors of one pair, under the spec's priors and under Jeffreys', read the same:
+    they may differ because a Bayes factor depends on every prior, not only on the prior of rho."""
+    same_side = (spec_log_bf10 >= 0) == (jeffreys_log_bf10 >= 0)
+    grades = evidence_grade(spec_log_bf10)[0], evidence_grade(jeffreys_log_bf10)[0]
+    if same_side and grades[0] == grades[1]:
+        return ("The two may differ because a Bayes factor weighs every prior, not only that of \u03c1; here both "
+                f"fall in grade {grades[0]} of Jeffreys' scale on the same side, so the difference does not "
+                "change the reading.")
+    return ("The two may differ because a Bayes factor weighs every prior, not only that of \u03c1; here they "
+            + ("favour opposite sides" if not same_side else f"fall in grades {grades[0]} and {grades[1]} of "
+               "Jeffreys' scale")
+            + ", so the reading depends on the priors on the means and SDs: the value under the spec's priors is "
+              "the one that matches the posterior on this page.")
 
 
 def exact_engine_sentence() -> str:

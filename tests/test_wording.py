@@ -52,7 +52,7 @@ def test_evidence_sentence_names_the_alternative_and_its_prior() -> None:
     assert "under the alternative that spreads \u03c1 as the stretched Beta(2, 2) prior does" in stretched
     assert stretched.index("alternative") < stretched.index("as under no correlation")
     # the grade words stay as they were (Jeffreys 1961, Appendix B grades at about 3, 10, 30, 100)
-    assert "moderate evidence on Jeffreys' grades" in stretched
+    assert "grade 2 of 5" in stretched and "\u201csubstantial\u201d" in stretched
 
 
 def test_evidence_sentence_for_the_rank_model_speaks_of_kendalls_tau() -> None:
@@ -64,7 +64,7 @@ def test_evidence_sentence_for_the_rank_model_speaks_of_kendalls_tau() -> None:
 def test_evidence_sentence_survives_an_astronomical_bayes_factor() -> None:
     """log BF10 = 11138.8 is far beyond a double's range (exp overflows above about 709.78: IEEE 754)."""
     text = interpret.evidence_sentence(11138.8)
-    assert "extreme evidence" in text and "10" in text and _no_nan(text)
+    assert "\u201cdecisive\u201d" in text and "10" in text and _no_nan(text)
 
 
 # ----------------------------------------------------------------------------- item 2: printing BF10
@@ -127,7 +127,9 @@ def test_strength_words_are_cohens_and_say_so() -> None:
     """Cohen (1988), Statistical Power Analysis for the Behavioral Sciences, sec. 3.2: 0.1 small,
     0.3 medium, 0.5 large for the behavioural sciences."""
     text = _paragraph(median=0.62, lower=0.2, upper=0.9)
-    assert "strong positive association" in text and "common benchmarks" not in text
+    assert "large positive association" in text and "common benchmarks" not in text
+    # Cohen's own words; none of the strength words is also one of Jeffreys' evidence words
+    assert not {word for _, word in interpret.STRENGTH_BANDS} & {w for _, w in interpret.EVIDENCE_GRADES}
     assert "Cohen's (1988) benchmarks for the behavioural sciences" in text
     assert "the median alone" in text
     assert "depends on the application" in text
@@ -136,15 +138,15 @@ def test_strength_words_are_cohens_and_say_so() -> None:
 def test_strength_word_classifies_the_printed_value() -> None:
     """-0.4979 is printed as -0.50, which is at Cohen's (1988) 'large' benchmark of 0.5."""
     assert interpret.format_rho(-0.4979) == "\u22120.50"
-    assert interpret.strength_word(-0.4979) == "strong"
-    assert interpret.describe(-0.4979) == "a strong negative correlation (\u22120.50)"
-    assert interpret.describe(0.0951) == "a weak positive correlation (0.10)"
+    assert interpret.strength_word(-0.4979) == "large"
+    assert interpret.describe(-0.4979) == "a large negative correlation (\u22120.50)"
+    assert interpret.describe(0.0951) == "a small positive correlation (0.10)"
     assert "strong negative association" in _paragraph(median=-0.4979, lower=-0.8, upper=-0.1)
     # the word always matches the printed two decimals, checked against the bands read off the text
     for value in (i / 10_000 for i in range(-10_000, 10_001, 7)):
         printed = abs(float(interpret.format_rho(value).replace(MINUS, "-")))
-        expected = ("negligible" if printed < 0.1 else "weak" if printed < 0.3
-                    else "moderate" if printed < 0.5 else "strong")
+        expected = ("negligible" if printed < 0.1 else "small" if printed < 0.3
+                    else "medium" if printed < 0.5 else "large")
         assert interpret.strength_word(value) == expected
 
 

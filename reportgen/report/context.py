@@ -201,7 +201,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "status": result.status,
         "sampler_checks": sampler_checks(result),
         "sampled": result.engine == "mcmc" and result.model != "rank",
-        "bf10": interpret.format_bayes_factor(result.crosscheck.log_bf10),
+        "bf10": interpret.bayes_factor_cell(result.crosscheck.log_bf10),
         "evidence_sentence": result.evidence_sentence,
         "savage_dickey": interpret.savage_dickey_sentence(
             savage_dickey_bf10=result.crosscheck.savage_dickey_bf10,
