@@ -141,7 +141,7 @@ def test_strength_word_classifies_the_printed_value() -> None:
     assert interpret.strength_word(-0.4979) == "large"
     assert interpret.describe(-0.4979) == "a large negative correlation (\u22120.50)"
     assert interpret.describe(0.0951) == "a small positive correlation (0.10)"
-    assert "strong negative association" in _paragraph(median=-0.4979, lower=-0.8, upper=-0.1)
+    assert "large negative association" in _paragraph(median=-0.4979, lower=-0.8, upper=-0.1)
     # the word always matches the printed two decimals, checked against the bands read off the text
     for value in (i / 10_000 for i in range(-10_000, 10_001, 7)):
         printed = abs(float(interpret.format_rho(value).replace(MINUS, "-")))
