@@ -98,6 +98,15 @@ def bfmi(energy: np.ndarray) -> np.ndarray:
         return np.asarray(az.bfmi(np.atleast_2d(energy)), dtype=float)
 
 
+# The report's symbols for the parameters (1 is the pair's x, 2 its y), so that a reason reads as the tables do.
+PARAMETER_SYMBOLS = {"mu_x": "\u03bc\u2081", "mu_y": "\u03bc\u2082", "sigma_x": "\u03c3\u2081",
+                     "sigma_y": "\u03c3\u2082", "rho": "\u03c1", "nu": "\u03bd", "tau": "\u03c4"}
+
+
+def symbol(name: str) -> str:
+    return PARAMETER_SYMBOLS.get(name, name)
+
+
 def diagnose(
     draws: dict[str, np.ndarray],
     diverging: np.ndarray,
@@ -117,14 +126,19 @@ def diagnose(
     warns: list[tuple[str, str]] = []
     worst_rhat = max(parameters, key=lambda p: p.rhat)
     if not worst_rhat.rhat < thresholds.rhat_max:
-        fails.append((RHAT, f"R-hat of {worst_rhat.name} is {worst_rhat.rhat:.3f} "
+        # four decimals, so that 1.0103 is seen to be above a limit of 1.01
+        fails.append((RHAT, f"R-hat of {symbol(worst_rhat.name)} is {worst_rhat.rhat:.4f} "
                             f"(must be below {thresholds.rhat_max:g})"))
     for kind, code in (("bulk", ESS_BULK), ("tail", ESS_TAIL)):
         worst = min(parameters, key=lambda p, k=kind: getattr(p, f"ess_{k}"))
         value = getattr(worst, f"ess_{kind}")
         if value < thresholds.ess_min:
-            fails.append((code, f"{kind} ESS of {worst.name} is {value:.0f} "
-                                f"(needs at least {thresholds.ess_min:g})"))
+            total = int(np.size(diverging))
+            # an ESS near the number of draws is the most a good run gives: say when the run is too short
+            short = (f"; {total:,} draws in all cannot reach it: run more draws, or --quick for a draft"
+                     if 0 < total < thresholds.ess_min * 1.5 else "")
+            fails.append((code, f"{kind} ESS of {symbol(worst.name)} is {value:.0f} "
+                                f"(needs at least {thresholds.ess_min:g}{short})"))
     if divergences > thresholds.max_divergences:
         fails.append((DIVERGENCES, f"{divergences} divergent transitions "
                                    f"(at most {thresholds.max_divergences} allowed)"))
