@@ -169,18 +169,18 @@ def _load(spec_path: Path, engine: str | None = None, model: str | None = None, 
     spec = with_sampler_overrides(load_spec(spec_path), **overrides)
     if quick:
         spec = with_quick(spec, given=[key for key, value in overrides.items() if value is not None])
+    return with_model(with_engine(spec, engine), model)
+
+
+def _say_settings(spec: Any) -> None:
+    """Settings the user should know the run used: a quick draft's, and the exact engine's priors, which
+    replace the spec's priors on the means and SDs by Jeffreys'."""
+    if ("quick", "true") in spec.overrides:
         sampler, thresholds = spec.document.sampler, spec.document.diagnostics
         with _stdout_may_fail():
             click.echo(f"quick draft: {sampler.draws} draws in each of {sampler.chains} chains, judged against "
                        f"ESS at least {thresholds.ess_min:g} and R-hat below {thresholds.rhat_max:g}; the report "
                        "is marked DRAFT on every page")
-    spec = with_model(with_engine(spec, engine), model)
-    _say_replaced_priors(spec)
-    return spec
-
-
-def _say_replaced_priors(spec: Any) -> None:
-    """The exact engine integrates the means and SDs out under Jeffreys' priors: say so when the spec set others."""
     if spec.document.engine != "exact":
         return
     replaced = sorted({f"{pair.priors.means.family} means" for pair in spec.pairs if pair.priors.means.family != "flat"}
@@ -217,6 +217,7 @@ def _run_one(spec_path: Path, out: Path, engine: str | None, model: str | None, 
     click.get_current_context().meta[OUT_KEY] = out
     outcome = run(spec, out, command_line=sys.argv, progress=_progress_printer(), previous=previous,
                   fitter=fitter)
+    _say_settings(spec)
     _report_outcome(outcome)
     return outcome
 

@@ -249,7 +249,7 @@ def _one_line(exc: BaseException) -> str:
 # return can hide one); the usual remedy (common practice, OWASP "CSV Injection") is a leading apostrophe.
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 # Columns of results.csv that hold text; every other column holds numbers that reportgen formatted.
-TEXT_COLUMNS = frozenset({"pair", "x", "y", "status", "rope_decision", "interval", "status_reasons", "engine",
+TEXT_COLUMNS = frozenset({"pair", "x", "y", "status", "rope_decision", "interval_kind", "status_reasons", "engine",
                           "model", "influential_rows", "prior_sensitive", "model_warnings", "borderline_rules"})
 
 

@@ -22,6 +22,11 @@ def _number(value: float) -> str:
     return repr(float(value)) if np.isfinite(value) else ""
 
 
+def _ln(value: float) -> str:
+    """The natural log of a positive ratio; empty where there is none."""
+    return repr(float(np.log(value))) if np.isfinite(value) and value > 0 else ""
+
+
 def model_check_cells(pair: PairResult) -> list[str]:
     """The model, the robust fit and the checks of one pair, in MODEL_CHECK_COLUMNS order."""
     robust = pair.choice.robust if pair.choice is not None else None
@@ -44,10 +49,10 @@ def model_check_cells(pair: PairResult) -> list[str]:
 def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
     """The rows of results.csv: the fixed columns, then extras, then p_<rule> and its Monte Carlo error."""
     rule_names = results.rule_names
-    interval_text = f"{results.interval_kind} {results.credible_mass:g}"
-    header = [*CSV_COLUMNS, "p_positive", "p_rope", "rope_decision", "interval",
+    # every Bayes factor on one scale, the natural log, named by it
+    header = [*CSV_COLUMNS, "p_positive", "p_rope", "rope_decision", "interval_kind", "interval_mass",
               "fisher_lower", "fisher_upper", "p_value", "seed", "status_reasons",
-              "exact_mean", "exact_sd", "exact_mean_gap", "log_bf10", "savage_dickey_bf10", "engine",
+              "exact_mean", "exact_sd", "exact_mean_gap", "ln_bf10", "ln_bf10_savage_dickey", "engine",
               *MODEL_CHECK_COLUMNS, "borderline_rules",
               *[column for name in rule_names for column in (f"p_{name}", f"p_{name}_mcse")]]
     rows: list[list[object]] = []
@@ -60,11 +65,12 @@ def results_rows(results: RunResults) -> tuple[list[str], list[list[object]]]:
             *(("", "", "") if pair.engine == "exact" else
               (f"{d.rhat_max:.4f}", f"{d.ess_bulk_min:.0f}", f"{d.ess_tail_min:.0f}")), d.divergences,
             pair.status, repr(pair.p_positive), repr(pair.rope_probability), pair.rope_decision,
-            interval_text, repr(pair.reference.ci_lower), repr(pair.reference.ci_upper),
+            results.interval_kind, f"{results.credible_mass:g}",
+            repr(pair.reference.ci_lower), repr(pair.reference.ci_upper),
             repr(pair.reference.p_value), "" if pair.seed is None else pair.seed, "; ".join(d.reasons),
             _number(pair.crosscheck.exact_mean), _number(pair.crosscheck.exact_sd),
             _number(pair.crosscheck.mean_gap), _number(pair.crosscheck.log_bf10),
-            _number(pair.crosscheck.savage_dickey_bf10), pair.engine,
+            _ln(pair.crosscheck.savage_dickey_bf10), pair.engine,
             *model_check_cells(pair), ";".join(rule.name for rule in pair.rules if rule.borderline),
             *[cell for rule in pair.rules for cell in (repr(rule.probability), repr(rule.mcse))],
         ])

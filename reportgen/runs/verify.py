@@ -37,10 +37,10 @@ ABSOLUTE_TOLERANCE = 1e-12
 # once in 16,000 columns for normal errors).
 ALLOWED_MCSE = 4.0 * math.sqrt(2.0)
 DATA_COLUMNS = frozenset({"n", "n_dropped", "sample_r", "fisher_lower", "fisher_upper", "p_value", "seed",
-                          "exact_mean", "exact_sd", "log_bf10", "influence_max", "normality_p"})
+                          "exact_mean", "exact_sd", "ln_bf10", "influence_max", "normality_p"})
 # How the sampler went, not what it estimated: listed when they differ, never a reason to refuse.
 SAMPLER_COLUMNS = frozenset({"rhat_max", "ess_bulk_min", "ess_tail_min", "divergences", "nu_median",
-                             "savage_dickey_bf10", "status_reasons"})
+                             "ln_bf10_savage_dickey", "status_reasons"})
 MEAN_COLUMNS = frozenset({"rho_mean", "exact_mean_gap"})
 MEDIAN_COLUMNS = frozenset({"rho_median", "robust_rho_median"})
 BOUND_COLUMNS = frozenset({"rho_lower", "rho_upper", "robust_rho_lower", "robust_rho_upper"})
@@ -249,11 +249,27 @@ def environment_changes(original: dict[str, Any], rerun: dict[str, Any]) -> tupl
     return _changes(part(original), part(rerun))
 
 
+def upgraded_row(row: dict[str, str]) -> dict[str, str]:
+    """A results.csv row under today's column names; an older version's row (log_bf10, a plain
+    savage_dickey_bf10, one "central 0.95" interval column) is mapped onto them, so that a run made before
+    the renames can still be verified."""
+    row = dict(row)
+    if "log_bf10" in row and "ln_bf10" not in row:
+        row["ln_bf10"] = row.pop("log_bf10")
+    if "savage_dickey_bf10" in row and "ln_bf10_savage_dickey" not in row:
+        ratio = _number(row.pop("savage_dickey_bf10"))
+        row["ln_bf10_savage_dickey"] = repr(math.log(ratio)) if ratio is not None and ratio > 0 else ""
+    if "interval" in row and "interval_kind" not in row:
+        kind, _, mass = row.pop("interval").partition(" ")
+        row["interval_kind"], row["interval_mass"] = kind, mass
+    return row
+
+
 def _read_results(path: Path) -> dict[str, dict[str, str]]:
     if not path.is_file():
         return {}
     with path.open(encoding="utf-8", newline="") as handle:
-        return {row["pair"]: row for row in csv.DictReader(handle)}
+        return {row["pair"]: upgraded_row(row) for row in csv.DictReader(handle)}
 
 
 def _number(text: str) -> float | None:
