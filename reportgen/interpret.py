@@ -119,14 +119,15 @@ def rope_sentence(rope: Rope, probability: float, decision: str, mass: float,
     """Kruschke's (2018) HDI + ROPE reading; the HDI is named with its limits, since it can differ
     from the equal-tailed interval shown elsewhere."""
     band = f"{format_threshold(rope.lower)} to {format_threshold(rope.upper)}"
-    start = (f"The probability that \u03c1 lies in the band treated as practically zero ({band}) "
+    start = (f"The probability that \u03c1 lies in the region of practical equivalence (ROPE, {band}), the values "
+             "treated as practically zero, "
              f"is {format_probability(probability)}. ")
     hdi_text = f"The {mass:.0%} highest-density interval ({format_rho(hdi[0])} to {format_rho(hdi[1])})"
     if decision == "practically_zero":
-        return start + f"{hdi_text} lies inside the band: the correlation is practically zero."
+        return start + f"{hdi_text} lies inside the ROPE: the correlation is practically zero."
     if decision == "not_zero":
-        return start + f"{hdi_text} lies outside the band: the correlation is not practically zero."
-    return start + f"{hdi_text} overlaps the band's edge, so the data do not decide the question."
+        return start + f"{hdi_text} lies outside the ROPE: the correlation is not practically zero."
+    return start + f"{hdi_text} overlaps the edge of the ROPE, so the data do not decide the question."
 
 
 def pair_paragraph(

@@ -251,10 +251,11 @@ def pair_sentence(key: str, old: RhoSummary, new: RhoSummary, diff: RhoDifferenc
     shown = f"{signed_rho(diff.median)} ({rho(diff.lower)} to {rho(diff.upper)})"
     if basis == "added_rows":
         middle = (f"over all rows; the added rows alone differ from the earlier rows by {shown}, so the "
-                  "probability that rho rose")
+                  "probability that \u03c1 rose")
     else:
-        middle = f"a difference of {shown} with the two runs taken as independent; the probability that rho rose"
-    text = (f"For {key}, the median of rho went from {rho(old.median)} to {rho(new.median)} {middle} is "
+        middle = f"a difference of {shown} with the two runs taken as independent; the probability that \u03c1 rose"
+    # the sentence stands under the pair's own row, which names the pair by its labels
+    text = (f"The median of \u03c1 went from {rho(old.median)} to {rho(new.median)} {middle} is "
             f"{interpret.format_probability(diff.p_rose)} and that it moved by more than "
             f"{interpret.format_threshold(diff.margin)} either way is {interpret.format_probability(diff.p_moved)}.")
     for change in flips:
