@@ -13,6 +13,7 @@ import subprocess
 from pathlib import Path
 from types import SimpleNamespace
 
+import numpy as np
 import pytest
 
 import reportgen
@@ -144,3 +145,31 @@ def test_sampler_check_badges(engine: str, model: str, status: str, label: str) 
     result = SimpleNamespace(engine=engine, model=model, status=status)
     assert sampler_checks(result)["label"] == label  # type: ignore[arg-type]
 
+
+
+def test_the_compact_layout_needs_fewer_pages(tmp_path: Path) -> None:
+    """Three pairs: in the compact layout they follow one another, so the PDF is shorter than the full one."""
+    frame = correlated_frame(40, 0.5, seed=5)
+    frame["c"] = frame["a"] * 0.3 + np.random.default_rng(6).normal(size=40)
+    frame.to_csv(tmp_path / "data.csv", index=False)
+    body = """
+        [[pairs]]
+        x = "a"
+        y = "b"
+
+        [[pairs]]
+        x = "a"
+        y = "c"
+
+        [[pairs]]
+        x = "b"
+        y = "c"
+    """
+    counts = {}
+    for layout in ("full", "compact"):
+        spec = write_spec(tmp_path, body, quick=False)
+        spec.write_text(spec.read_text(encoding="utf-8").replace(
+            'title = "Test report"', f'title = "Test report"\nlayout = "{layout}"'), encoding="utf-8")
+        reportgen.run(spec, tmp_path / layout, engine="exact")
+        counts[layout] = len(_pages(tmp_path / layout / "report.pdf"))
+    assert counts["compact"] < counts["full"], counts
