@@ -337,7 +337,7 @@ def summary_table_note(*, mass: str, interval_name: str, rho_prior: str, any_sam
                        any_rank: bool) -> str:
     """The note under page one's table: what each column holds, which priors the Bayes factor uses."""
     parts = [
-        f"Credible interval: the {mass} {interval_name} of the posterior of \u03c1.",
+        f"Credible interval: the {mass} {interval_name} interval of the posterior of \u03c1.",
         "Rule columns: the posterior probability that the statement holds, and whether it reaches the "
         "requirement; \u201cborderline\u201d: within two Monte Carlo standard errors of it.",
     ]

@@ -61,6 +61,8 @@ author = ""          # who prepared it
 confidentiality = "Confidential: prepared for the named client only."
 logo = ""            # optional PNG or JPEG, relative to this file, under 2 MB
 templates = ""       # optional folder of templates that override the shipped ones
+layout = "full"      # full: every figure and table, each pair from a new page | compact: pairs follow on
+draft = false        # true: every page says DRAFT (--quick sets it)
 
 [data]
 path = {_toml_string(data_path)}   # relative to this spec file; CSV, Excel (.xlsx) or Parquet

@@ -173,3 +173,16 @@ def test_the_compact_layout_needs_fewer_pages(tmp_path: Path) -> None:
         reportgen.run(spec, tmp_path / layout, engine="exact")
         counts[layout] = len(_pages(tmp_path / layout / "report.pdf"))
     assert counts["compact"] < counts["full"], counts
+
+
+def test_trailing_comments_go_and_hashes_in_strings_stay() -> None:
+    """The starter's notes after a value are dropped; a # inside a basic or literal string is part of the
+    value. The standard library's TOML reader (tomllib) reads the same settings from both texts."""
+    import tomllib
+
+    text = ('[report]\ntitle = "Plant #4 \\\\"east\\\\" # not a note" # a note\nlogo = \'a#b.png\'  # path\n'
+            'subtitle = """\nline # kept\n"""\n[data]\npath = "d.csv"   # relative to this file\n')
+    shown = spec_without_comments(text)
+    assert "# a note" not in shown and "# path" not in shown and "relative to" not in shown
+    assert "# not a note" in shown and "a#b.png" in shown and "line # kept" in shown
+    assert tomllib.loads(shown) == tomllib.loads(text)

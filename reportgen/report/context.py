@@ -266,17 +266,43 @@ def rule_cells(result: PairResult) -> list[dict[str, Any]]:
     return cells
 
 
-def spec_without_comments(text: str) -> str:
-    """The spec as the client should read it: whole-line comments (the starter's notes) and the blank lines
-    they leave in runs are dropped; every setting line stays exactly as written.
+def _without_trailing_comment(line: str) -> str:
+    """``line`` without a ``#`` comment that follows its value; a ``#`` inside a quoted string stays.
 
-    Only lines whose first non-blank character is ``#`` go: a ``#`` later in a line may sit inside a string,
-    and telling the two apart needs a TOML parser's view, so such lines are kept whole.
+    Basic ("...", with backslash escapes) and literal ('...') strings are followed; a line that opens or
+    closes a multi-line string (three quotes) is kept whole, since its quotes span lines.
+    """
+    if '"""' in line or "'''" in line:
+        return line
+    quote = ""
+    escaped = False
+    for index, char in enumerate(line):
+        if quote:
+            if escaped:
+                escaped = False
+            elif char == "\\" and quote == '"':
+                escaped = True
+            elif char == quote:
+                quote = ""
+        elif char in "\"'":
+            quote = char
+        elif char == "#":
+            return line[:index].rstrip()
+    return line
+
+
+def spec_without_comments(text: str) -> str:
+    """The spec as the client should read it: comments (the starter's notes) and the blank lines they
+    leave in runs are dropped; every setting stays exactly as written.
+
+    Parsing the result gives the same settings as the file (tests check this with the standard library's
+    TOML reader), so the appendix still shows what the run read.
     """
     kept: list[str] = []
-    for line in text.splitlines():
-        if line.lstrip().startswith("#"):
-            continue
+    for raw in text.splitlines():
+        line = "" if raw.lstrip().startswith("#") else _without_trailing_comment(raw)
+        if not line.strip() and raw.strip():
+            continue  # a comment line: dropped, not turned into a blank line
         if not line.strip() and (not kept or not kept[-1].strip()):
             continue
         kept.append(line)
@@ -389,6 +415,9 @@ def build_context(
             "anchor": p["anchor"], "title": p["title"], "n": p["n"], "median": p["median"],
             "interval": p["interval"], "p_positive": p["p_positive"], "rules": p["rules"],
             "status": p["status"], "sampler_checks": p["sampler_checks"], "bf10": p["bf10"],
+            # the value above its kind (BF10 or BF01), so that a narrow column holds both
+            "bf_value": p["bf10"].partition(" ")[2] or p["bf10"], "bf_kind": p["bf10"].partition(" ")[0]
+            if " " in p["bf10"] else "",
             "model": p["checks"]["model_short"],
         } for p in pairs],
         "model_warnings": run_checks_context(results, _anchor),
