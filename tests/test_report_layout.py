@@ -180,7 +180,7 @@ def test_trailing_comments_go_and_hashes_in_strings_stay() -> None:
     value. The standard library's TOML reader (tomllib) reads the same settings from both texts."""
     import tomllib
 
-    text = ('[report]\ntitle = "Plant #4 \\\\"east\\\\" # not a note" # a note\nlogo = \'a#b.png\'  # path\n'
+    text = ('[report]\ntitle = "Plant #4 \\"east\\" # not a note" # a note\nlogo = \'a#b.png\'  # path\n'
             'subtitle = """\nline # kept\n"""\n[data]\npath = "d.csv"   # relative to this file\n')
     shown = spec_without_comments(text)
     assert "# a note" not in shown and "# path" not in shown and "relative to" not in shown

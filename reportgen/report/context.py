@@ -299,7 +299,14 @@ def spec_without_comments(text: str) -> str:
     TOML reader), so the appendix still shows what the run read.
     """
     kept: list[str] = []
+    inside = ""  # the quotes of a multi-line string the current line lies in, kept whole
     for raw in text.splitlines():
+        if inside or '"""' in raw or "'''" in raw:
+            for quotes in ('"""', "'''"):
+                if raw.count(quotes) % 2 and inside in ("", quotes):
+                    inside = "" if inside else quotes
+            kept.append(raw)
+            continue
         line = "" if raw.lstrip().startswith("#") else _without_trailing_comment(raw)
         if not line.strip() and raw.strip():
             continue  # a comment line: dropped, not turned into a blank line
