@@ -92,26 +92,25 @@ def rule_verdict(probability: float, required: float) -> str:
 
 
 def rule_sentence(rule: Rule, probability: float) -> str:
-    verdict = rule_verdict(probability, rule.required_probability)
+    """The rule's verdict, worded after both sides: the probability that the statement holds and the
+    probability that it does not. Bands (ours): met at the required probability; below 0.25 the data point
+    the other way (firmly when the opposite reaches the required probability); 0.25 to 0.75 they do not
+    settle it; from 0.75 up to the requirement they lean towards it."""
+    required = rule.required_probability
     name = rule.description or rule.name.replace("_", " ")
-    shown = format_probability(probability)
-    base = (f"The posterior probability that {rule_statement(rule)} is {shown}; "
-            f"the rule \u201c{name}\u201d asks for at least {format_required(rule.required_probability)}, ")
-    if verdict == "met":
+    base = (f"The posterior probability that {rule_statement(rule)} is {format_probability(probability)}; "
+            f"the rule \u201c{name}\u201d asks for at least {format_required(required)}, ")
+    if rule_verdict(probability, required) == "met":
         return base + "so it is met."
-    against = format_probability(1.0 - probability)
-    if probability <= 1.0 - rule.required_probability:
-        return (base + f"so it is not met, and the data point the other way (probability {against} that it does "
-                "not hold).")
-    # the wording follows both sides: below one half the data lean against the statement, however mildly
+    against = f"the probability that it does not hold is {format_probability(1.0 - probability)}"
+    if 1.0 - probability >= required:
+        return base + f"so it is not met, and the data point firmly the other way: {against}."
     if probability < 0.25:
-        return (base + f"so it is not met: the data point the other way (probability {against} that it does not "
-                "hold), though not as firmly as the rule asks.")
-    if probability < 0.5:
-        return base + f"so it is not met: the data lean against it (probability {against} that it does not hold)."
+        return base + f"so it is not met, and the data point the other way: {against}."
     if probability < 0.75:
-        return base + "so it is not met: the data do not settle it, leaning slightly towards it."
-    return base + "so it is not met: the data lean towards it but fall short of the requirement."
+        return base + f"so it is not met: the data do not settle it ({against})."
+    return (base + "so it is not met: the data lean towards it but fall short of the required "
+            f"{format_required(required)}.")
 
 
 def rope_sentence(rope: Rope, probability: float, decision: str, mass: float,
@@ -164,7 +163,7 @@ def pair_paragraph(
         parts.append(f"The interval lies wholly on the {'positive' if lower > 0 else 'negative'} side of zero. "
                      f"Its median is a {strength} {direction} association on Cohen's (1988) benchmarks for the "
                      "behavioural sciences (0.1, 0.3 and 0.5 mark small, medium and large"
-                     + ("; below 0.1 is negligible" if strength == "negligible" else "")
+                     + ("; negligible is our word for below Cohen's small" if strength == "negligible" else "")
                      + "), a reading of the median alone; how large is large enough depends on the application.")
     else:
         # A posterior is not flat over its interval: say that the values inside are not equally supported.
@@ -258,8 +257,9 @@ def prior_text_sds(family: str, units: str, scale: float, nu: float) -> str:
 
 # Jeffreys (1961), Theory of Probability, 3rd ed., Appendix B: grades of evidence against the null by its
 # odds K, at powers of 10^(1/2); his words (from memory) are "not worth more than a bare mention" (grade 1),
-# "substantial" (2), "strong" (3), "very strong" (4) and "decisive" (5). Here they grade the larger of BF10
-# and BF01 = 1/BF10, so the same scale reads evidence for either side.
+# "substantial" (2), "strong" (3), "very strong" (4) and "decisive" (5); his grade 0 (K > 1) only says the
+# null is supported. Here the same cutoffs grade the larger of BF10 and BF01 = 1/BF10, so one scale reads
+# evidence for either side; the sentence says when it is applied to BF01.
 EVIDENCE_GRADES = ((10 ** 0.5, "not worth more than a bare mention"), (10.0, "substantial"),
                    (10 ** 1.5, "strong"), (100.0, "very strong"))
 DECISIVE = "decisive"
@@ -331,10 +331,13 @@ def evidence_sentence(log_bf10: float, model: str = "normal", *, rho_a: float = 
              else "with Jeffreys' priors for the means and SDs")
     named = (f"BF\u2080\u2081 = 1/BF\u2081\u2080 is {factor}, the evidence for no correlation" if for_null
              else f"The Bayes factor BF\u2081\u2080 is {factor}")
-    side = "for no correlation" if for_null else "against no correlation"
+    reading = (f"Jeffreys' (1961, Appendix B) scale grades evidence against {parameter} = 0; applied in the same "
+               f"way to BF\u2080\u2081, this is grade {grade} of 5, evidence for no correlation of the size he "
+               f"calls \u201c{word}\u201d." if for_null else
+               f"On Jeffreys' (1961, Appendix B) scale this is grade {grade} of 5, evidence against no correlation "
+               f"that he calls \u201c{word}\u201d.")
     return (f"{named[0].upper()}{named[1:]}: the data are {factor} times as likely under {favoured} as under "
-            f"{other}, {basis}. On Jeffreys' (1961, Appendix B) scale this is grade {grade} of 5, evidence "
-            f"{side} that he calls \u201c{word}\u201d.")
+            f"{other}, {basis}. {reading}")
 
 
 def bayes_factor_cell(log_bf10: float) -> str:
@@ -436,23 +439,32 @@ def savage_dickey_sentence(*, savage_dickey_bf10: float, relative_mcse: float, r
         parts.append(f"Under Jeffreys' priors for the means and SDs the exact BF\u2081\u2080 is "
                      f"{format_bayes_factor(jeffreys_log_bf10)}; the difference from the estimate reflects the "
                      "spec's priors on the means and SDs as well as Monte Carlo error.")
+        parts.append(bayes_factors_reading(log_estimate, jeffreys_log_bf10))
     return " ".join(parts)
 
 
 def bayes_factors_reading(spec_log_bf10: float, jeffreys_log_bf10: float) -> str:
-    """Whether two Bayes factors of one pair, under the spec's priors and under Jeffreys', read the same:
-    they may differ because a Bayes factor depends on every prior, not only on the prior of rho."""
+    """Whether the two Bayes factors of one pair, under the spec's priors and under Jeffreys' priors for the
+    means and SDs, read alike. They may differ because a Bayes factor depends on every prior, not only on
+    that of rho; the difference matters only when it moves the grade on Jeffreys' (1961) scale or the side
+    of 1."""
+    spec_grade, spec_word = evidence_grade(spec_log_bf10)
+    jeffreys_grade, jeffreys_word = evidence_grade(jeffreys_log_bf10)
     same_side = (spec_log_bf10 >= 0) == (jeffreys_log_bf10 >= 0)
-    grades = evidence_grade(spec_log_bf10)[0], evidence_grade(jeffreys_log_bf10)[0]
-    if same_side and grades[0] == grades[1]:
-        return ("The two may differ because a Bayes factor weighs every prior, not only that of \u03c1; here both "
-                f"fall in grade {grades[0]} of Jeffreys' scale on the same side, so the difference does not "
-                "change the reading.")
-    return ("The two may differ because a Bayes factor weighs every prior, not only that of \u03c1; here they "
-            + ("favour opposite sides" if not same_side else f"fall in grades {grades[0]} and {grades[1]} of "
-               "Jeffreys' scale")
-            + ", so the reading depends on the priors on the means and SDs: the value under the spec's priors is "
-              "the one that matches the posterior on this page.")
+    why = ("The Bayes factor under the spec's priors and the one under Jeffreys' may differ because a Bayes "
+           "factor depends on every prior, not only on that of \u03c1: the first uses the spec's priors on the "
+           "means and SDs, the second Jeffreys' priors for them")
+    if same_side and spec_grade == jeffreys_grade:
+        side = "against" if spec_log_bf10 >= 0 else "for"
+        return (f"{why}; both fall in grade {spec_grade} of Jeffreys' scale (\u201c{spec_word}\u201d), on the "
+                f"same side of 1 (evidence {side} no correlation), so the difference does not change the reading.")
+    if not same_side:
+        how = "they fall on opposite sides of 1, one favouring a correlation and the other none"
+    else:
+        how = (f"they fall in different grades of Jeffreys' scale, {spec_grade} (\u201c{spec_word}\u201d) and "
+               f"{jeffreys_grade} (\u201c{jeffreys_word}\u201d)")
+    return (f"{why}; here {how}, so the difference changes the reading: it rests on the priors on the means "
+            "and SDs, and the value under the spec's priors is the one that goes with the posterior shown.")
 
 
 def exact_engine_sentence() -> str:

@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import re
-
 import numpy as np
 
 from reportgen.diagnostics import diagnose
@@ -31,21 +29,6 @@ def test_a_stuck_chain_fails_on_rhat() -> None:
                       Diagnostics())
     assert result.status == "fail"
     assert any("R-hat of \u03c1" in reason for reason in result.reasons)
-
-
-def test_reasons_use_the_reports_symbols_and_enough_digits() -> None:
-    """A reason names the parameter as the report's tables do (sigma of x is the report's sigma-1), and an
-    R-hat just above the limit shows why it failed: 1.0103 is printed with four decimals (the limit 1.01)."""
-    from reportgen.diagnostics import symbol
-
-    assert symbol("sigma_x") == "\u03c3\u2081" and symbol("mu_y") == "\u03bc\u2082"
-    rng = np.random.default_rng(5)
-    # two of four chains shifted by 0.3 SD: rank-normalised split R-hat a little above 1.01 (Vehtari et al. 2021)
-    draws = rng.normal(size=(4, 1000)) + np.array([[0.0], [0.0], [0.3], [0.3]])
-    result = diagnose({"sigma_x": draws}, np.zeros((4, 1000), bool), rng.normal(size=(4, 1000)), Diagnostics())
-    rhat_reasons = [reason for reason in result.reasons if reason.startswith("R-hat")]
-    assert rhat_reasons, result.reasons
-    assert re.search(r"R-hat of \u03c3\u2081 is 1\.0\d\d\d \(must be below 1\.01\)", rhat_reasons[0])
 
 
 def test_too_few_draws_for_the_ess_threshold_say_so() -> None:

@@ -51,7 +51,7 @@ def test_evidence_sentence_names_the_alternative_and_its_prior() -> None:
     stretched = interpret.evidence_sentence(math.log(7.0), rho_a=2.0, rho_b=2.0)
     assert "under the alternative that spreads \u03c1 as the stretched Beta(2, 2) prior does" in stretched
     assert stretched.index("alternative") < stretched.index("as under no correlation")
-    # the grade words stay as they were (Jeffreys 1961, Appendix B grades at about 3, 10, 30, 100)
+    # Jeffreys (1961), Appendix B (from memory): 7 lies between 10^(1/2) and 10, his grade 2, "substantial"
     assert "grade 2 of 5" in stretched and "\u201csubstantial\u201d" in stretched
 
 
@@ -132,6 +132,9 @@ def test_strength_words_are_cohens_and_say_so() -> None:
     assert not {word for _, word in interpret.STRENGTH_BANDS} & {w for _, w in interpret.EVIDENCE_GRADES}
     assert "Cohen's (1988) benchmarks for the behavioural sciences" in text
     assert "the median alone" in text
+    # below 0.1 Cohen gives no word: the report says whose word "negligible" is
+    tiny = _paragraph(median=0.06, lower=0.01, upper=0.11)
+    assert "negligible positive association" in tiny and "below Cohen's small" in tiny
     assert "depends on the application" in text
 
 
@@ -287,3 +290,150 @@ def test_crosscheck_sentence_speaks_of_monte_carlo_error_alone() -> None:
                                          rule_name="material", rule_gap=-0.01, rule_allowed=0.02, within=True)
     assert "quarter" not in text and "Monte Carlo error alone" in text and "spec's own priors" in text
     assert "\u22120.0100" in text  # a true minus sign (common typographic practice)
+
+
+# ----------------------------------------------------------------------------- Jeffreys' grades and BF01
+
+# Jeffreys (1961), Theory of Probability, 3rd ed., Appendix B (from memory): grades of K at powers of
+# 10^(1/2), in his words. The cutoffs are written out here by hand: 10^0.5 = 3.16228, 10^1.5 = 31.6228.
+JEFFREYS = ((3.16228, 1, "not worth more than a bare mention"), (10.0, 2, "substantial"),
+            (31.6228, 3, "strong"), (100.0, 4, "very strong"))
+
+
+@pytest.mark.parametrize(("bound", "grade", "word"), JEFFREYS)
+def test_evidence_grades_change_at_powers_of_root_ten(bound: float, grade: int, word: str) -> None:
+    """Just below each cutoff is that grade; just above is the next one (grade 5, "decisive", beyond 100)."""
+    assert interpret.evidence_grade(math.log(bound * 0.999)) == (grade, word)
+    above = interpret.evidence_grade(math.log(bound * 1.001))
+    assert above[0] == grade + 1
+    # the same cutoffs read BF01 = 1/BF10 (evidence for rho = 0)
+    assert interpret.evidence_grade(-math.log(bound * 0.999)) == (grade, word)
+    assert interpret.evidence_grade(math.log(1e6)) == (5, "decisive")
+
+
+def test_evidence_sentence_quotes_jeffreys_and_says_when_his_scale_is_read_for_the_null() -> None:
+    """Jeffreys' scale is stated for evidence against the null (his K is the odds for it, Appendix B); read for
+    BF01 the sentence must say so, and it prints BF01 = 1/BF10 (1/0.08 = 12.5 by hand) rather than 0.08."""
+    against = interpret.evidence_sentence(math.log(20.0))
+    assert "grade 3 of 5" in against and "\u201cstrong\u201d" in against and "BF\u2081\u2080 is 20" in against
+    assert "Jeffreys's" not in against and "Jeffrey's" not in against
+    for_null = interpret.evidence_sentence(math.log(0.08))
+    assert for_null.startswith("BF\u2080\u2081 = 1/BF\u2081\u2080 is 12.5")
+    assert "applied in the same way to BF\u2080\u2081" in for_null and "grade 3 of 5" in for_null
+    assert "0.08" not in for_null
+    # cohen's strength words no longer share a word with the evidence grades
+    assert not {word for _, word in interpret.STRENGTH_BANDS} & {word for _, _, word in JEFFREYS}
+
+
+@pytest.mark.parametrize(("bf10", "expected"), [
+    (1.0 / 3.2, "BF\u2080\u2081 3.2"),              # 1/BF10 = 3.2
+    (0.25, "BF\u2080\u2081 4"),                     # 1/0.25 = 4
+    (2.2e-12, "BF\u2080\u2081 " + _power("4.5", 11)),  # 1/2.2e-12 = 4.545e11, by hand
+    (4.5e11, "BF\u2081\u2080 " + _power("4.5", 11)),
+    (1.85, "BF\u2081\u2080 1.85"),
+    (1.0, "BF\u2081\u2080 1"),
+])
+def test_bayes_factor_cell_shows_bf01_below_one(bf10: float, expected: str) -> None:
+    """Page one shows the factor that is at least 1 and names it; BF01 = 1/BF10 (definition: Kass &
+    Raftery 1995, sec. 3)."""
+    assert interpret.bayes_factor_cell(math.log(bf10)) == expected
+
+
+def test_bayes_factor_cell_never_overflows_and_dashes_the_unknown() -> None:
+    """exp(-11138.8) underflows a double (IEEE 754); BF01 = exp(11138.8) from mpmath at 40 digits."""
+    mpmath.mp.dps = 40
+    value = mpmath.exp(mpmath.mpf("11138.8"))
+    exponent = int(mpmath.floor(mpmath.log10(value)))
+    mantissa = float(value / mpmath.power(10, exponent))
+    assert interpret.bayes_factor_cell(-11138.8) == "BF\u2080\u2081 " + _power(f"{mantissa:.1f}", exponent)
+    for unknown in (NAN, math.inf, -math.inf):
+        assert interpret.bayes_factor_cell(unknown) == "\u2014"
+
+
+# ----------------------------------------------------------------------------- rule verdicts, both sides
+
+
+def _rule(required: float = 0.95) -> object:
+    from reportgen.spec import Rule
+
+    return Rule(name="material", statement="above", threshold=0.5, required_probability=required)
+
+
+def test_rule_sentence_at_0126_points_the_other_way() -> None:
+    """P(rho > 0.5) = 0.126 means P(rho <= 0.5) = 1 - 0.126 = 0.874 (complement rule): the data lean against
+    the statement, so the sentence must not say they do not settle it either way."""
+    text = interpret.rule_sentence(_rule(), 0.126)  # type: ignore[arg-type]
+    assert "the other way" in text and "the probability that it does not hold is 0.874" in text
+    assert "either way" not in text and "settle" not in text and "so it is not met" in text
+
+
+@pytest.mark.parametrize("required", [0.8, 0.9, 0.95, 0.99])
+def test_rule_sentence_follows_both_probabilities(required: float) -> None:
+    """Bands (ours, stated in interpret.rule_sentence): met at the requirement; the other way below 0.25 or
+    when the complement reaches it; undecided only between 0.25 and 0.75; leaning towards it above that."""
+    for step in range(1, 1000):
+        p = step / 1000
+        text = interpret.rule_sentence(_rule(required), p)  # type: ignore[arg-type]
+        assert "either way" not in text
+        assert text.endswith("so it is met.") == (p >= required)
+        if p >= required:
+            continue
+        assert ("the other way" in text) == (p < 0.25 or 1.0 - p >= required), (p, text)
+        assert ("do not settle it" in text) == (0.25 <= p < 0.75 and 1.0 - p < required), (p, text)
+        assert ("lean towards it" in text) == (p >= 0.75), (p, text)
+        assert ("firmly" in text) == (1.0 - p >= required), (p, text)
+
+
+# ----------------------------------------------------------------------------- two Bayes factors, one reading
+
+
+def test_two_bayes_factors_in_one_grade_do_not_change_the_reading() -> None:
+    """5 and 8 both lie between 10^(1/2) and 10 (Jeffreys 1961, Appendix B, from memory: grade 2)."""
+    text = interpret.savage_dickey_sentence(savage_dickey_bf10=5.1, relative_mcse=0.05,
+                                            reference_log_bf10=math.log(5.0), jeffreys_log_bf10=math.log(8.0))
+    assert "spec's priors on the means and SDs" in text and "Jeffreys' priors for them" in text
+    assert "grade 2" in text and "does not change the reading" in text
+
+
+def test_two_bayes_factors_across_a_grade_or_across_one_change_the_reading() -> None:
+    """8 is grade 2 and 40 grade 4 (cutoffs 10 and 31.6: Jeffreys 1961, Appendix B, from memory); 0.7 and 1.6
+    lie on opposite sides of 1."""
+    grades = interpret.savage_dickey_sentence(savage_dickey_bf10=8.2, relative_mcse=0.05,
+                                              reference_log_bf10=math.log(8.0), jeffreys_log_bf10=math.log(40.0))
+    assert "grades of Jeffreys' scale, 2" in grades and "changes the reading" in grades
+    assert "does not change" not in grades
+    sides = interpret.bayes_factors_reading(math.log(0.7), math.log(1.6))
+    assert "opposite sides of 1" in sides and "changes the reading" in sides and "does not change" not in sides
+    # without the quadrature value the estimate itself is compared with Jeffreys' factor
+    estimate_only = interpret.savage_dickey_sentence(savage_dickey_bf10=0.7, relative_mcse=0.05,
+                                                     reference_log_bf10=NAN, jeffreys_log_bf10=math.log(1.6))
+    assert "opposite sides of 1" in estimate_only
+
+
+# ----------------------------------------------------------------------------- diagnostics in the report's symbols
+
+
+def test_reasons_use_the_reports_symbols_and_four_decimals_of_r_hat() -> None:
+    """Reasons name parameters as the report's tables do (sigma of x is sigma-1, the mean of y mu-2) and give
+    R-hat to four decimals, so that a value just above the limit 1.01 is seen to be above it. The R-hat and
+    ESS compared with are ArviZ's own rank-normalised values (Vehtari et al. 2021)."""
+    import arviz as az
+    import numpy as np
+
+    from reportgen.diagnostics import diagnose, symbol
+    from reportgen.spec import Diagnostics
+
+    assert symbol("sigma_x") == "\u03c3\u2081" and symbol("mu_y") == "\u03bc\u2082"
+    assert symbol("rho") == "\u03c1" and symbol("nu") == "\u03bd"
+    rng = np.random.default_rng(5)
+    # two of four chains shifted by 0.26 SD: R-hat just above 1.01 with this seed
+    draws = rng.normal(size=(4, 1000)) + np.array([[0.0], [0.0], [0.26], [0.26]])
+    reference = float(az.rhat(draws, method="rank"))
+    assert 1.01 < reference < 1.0105  # three decimals would print 1.010, seemingly at the limit
+    result = diagnose({"sigma_x": draws}, np.zeros((4, 1000), bool), rng.normal(size=(4, 1000)), Diagnostics())
+    assert f"R-hat of \u03c3\u2081 is {reference:.4f} (must be below 1.01)" in result.reasons
+    walk = np.cumsum(np.random.default_rng(4).normal(size=(4, 1000)), axis=1) * 0.05
+    result = diagnose({"mu_y": walk}, np.zeros((4, 1000), bool), rng.normal(size=(4, 1000)), Diagnostics())
+    bulk = [reason for reason in result.reasons if reason.startswith("bulk ESS")]
+    assert bulk == [f"bulk ESS of \u03bc\u2082 is {round(float(az.ess(walk, method='bulk')))} "
+                    "(needs at least 400)"]
