@@ -173,26 +173,49 @@ def _load(spec_path: Path, engine: str | None = None, model: str | None = None, 
 
 
 def _say_settings(spec: Any) -> None:
-    """Settings the user should know the run used: a quick draft's, and the exact engine's priors, which
-    replace the spec's priors on the means and SDs by Jeffreys'."""
-    if ("quick", "true") in spec.overrides:
-        sampler, thresholds = spec.document.sampler, spec.document.diagnostics
-        with _stdout_may_fail():
+    """Settings the user should know the run uses, said before the first fit: a quick draft's, and the
+    spec's priors on the means and SDs that the exact engine replaces by Jeffreys'."""
+    from reportgen.spec.loading import replaced_priors
+
+    with _stdout_may_fail():
+        if ("quick", "true") in spec.overrides and spec.document.engine == "exact":
+            click.echo("quick draft: the exact engine draws nothing, so only the marking changes; the report "
+                       "is marked DRAFT on every page")
+        elif ("quick", "true") in spec.overrides:
+            sampler, thresholds = spec.document.sampler, spec.document.diagnostics
             click.echo(f"quick draft: {sampler.draws} draws in each of {sampler.chains} chains, judged against "
                        f"ESS at least {thresholds.ess_min:g} and R-hat below {thresholds.rhat_max:g}; the report "
                        "is marked DRAFT on every page")
-    if spec.document.engine != "exact":
-        return
-    replaced = sorted({f"{pair.priors.means.family} means" for pair in spec.pairs if pair.priors.means.family != "flat"}
-                      | {f"{pair.priors.sds.family.replace('_', '-')} SDs" for pair in spec.pairs
-                         if pair.priors.sds.family != "jeffreys"})
-    if replaced:
-        with _stdout_may_fail():
-            click.echo(f"exact engine: the spec's priors on the {' and '.join(replaced)} are replaced by Jeffreys' "
-                       "priors (flat means, 1/sigma SDs); the prior on rho is kept")
+        replaced = [f"{family} prior on the {what}" for family, what in
+                    (name.rsplit(" ", 1) for name in replaced_priors(spec))]
+        if replaced:
+            listed = ", ".join(replaced[:-1]) + " and " + replaced[-1] if len(replaced) > 1 else replaced[0]
+            click.echo(f"exact engine: the spec's {listed} are replaced by Jeffreys' priors (flat means, "
+                       "1/sigma SDs); the prior on rho is kept")
 
 
-def _report_outcome(outcome: Any) -> None:
+# A run whose draws in all number below this many times ESS's threshold cannot be expected to reach it
+# (a well-mixed chain gives an ESS near its number of draws); the same margin as diagnostics.diagnose's hint.
+SHORT_RUN_FACTOR = 1.5
+
+
+def _short_run_hint(spec: Any, failed: Any) -> str:
+    """Advice for a run whose pairs failed only because so few draws cannot reach the ESS threshold
+    (R-hat may fail beside it: chains that short also mix poorly); empty for any other failure."""
+    from reportgen.diagnostics import ESS_BULK, ESS_TAIL, RHAT
+
+    sampler, ess_min = spec.document.sampler, spec.document.diagnostics.ess_min
+    if not failed or sampler.draws * sampler.chains >= SHORT_RUN_FACTOR * ess_min:
+        return ""
+    for pair in failed:
+        broken = set(pair.diagnosis.broken)
+        if not broken & {ESS_BULK, ESS_TAIL} or not broken <= {ESS_BULK, ESS_TAIL, RHAT}:
+            return ""
+    return (f"; {sampler.chains} chains of {sampler.draws} draws cannot reach ESS {ess_min:g}: run more draws "
+            "(--draws), or --quick for a draft judged against what short chains can reach")
+
+
+def _report_outcome(outcome: Any, spec: Any) -> None:
     results = outcome.results
     draws = ", draws/" if any(p.engine == "mcmc" for p in results.pairs) else ""
     changes = ", changes.csv" if (outcome.out_dir / "changes.csv").is_file() else ""
@@ -204,11 +227,13 @@ def _report_outcome(outcome: Any) -> None:
                        f"[{pair.rho.lower:+.3f}, {pair.rho.upper:+.3f}], n = {pair.n}")
     if results.status == "fail":
         names = ", ".join(p.key for p in results.failed)
-        click.echo(f"reportgen: {len(results.failed)} pair(s) failed the convergence checks: {names}", err=True)
+        hint = _short_run_hint(spec, results.failed)
+        click.echo(f"reportgen: {len(results.failed)} pair(s) failed the convergence checks: {names}{hint}",
+                   err=True)
 
 
 def _run_one(spec_path: Path, out: Path, engine: str | None, model: str | None, previous: Path | None = None,
-             fitter: Any = None, **overrides: int | None) -> Any:
+             fitter: Any = None, say: bool = True, **overrides: int | None) -> Any:
     from reportgen.runner import run, with_report_date
 
     # the date is pinned here so that {date} in --out and the report carry the same day
@@ -216,9 +241,8 @@ def _run_one(spec_path: Path, out: Path, engine: str | None, model: str | None, 
     out = resolve_out(out, spec.document.report.date)
     click.get_current_context().meta[OUT_KEY] = out
     outcome = run(spec, out, command_line=sys.argv, progress=_progress_printer(), previous=previous,
-                  fitter=fitter)
-    _say_settings(spec)
-    _report_outcome(outcome)
+                  fitter=fitter, on_start=_say_settings if say else None)
+    _report_outcome(outcome, spec)
     return outcome
 
 
@@ -300,8 +324,9 @@ def demo_command(out: Path, engine: str | None, model: str | None, **overrides: 
     worst = 0
     for spec_path, period in DEMO_MONTHS:
         folder = out / period
+        # said once, at the first month's start: the three months share their settings
         outcome = _run_one(spec_path, folder, engine, model, folders[-1] if folders else None, fitter,
-                           **overrides)
+                           say=not folders, **overrides)
         folders.append(folder)
         worst = max(worst, outcome.exit_code)
     changed = compare(folders[-2], folders[-1], out / "changes")

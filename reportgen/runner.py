@@ -307,10 +307,13 @@ def run(
     progress: ProgressCallback | None = None,
     fitter: Fitter | None = None,
     previous: Path | None = None,
+    on_start: Callable[[Spec], None] | None = None,
 ) -> RunOutcome:
     """Fit, render and publish into ``out_dir`` (``{date}`` and ``{period}`` filled from the report date).
     The folder is locked from before the first fit until its new contents are published. With
-    ``previous`` (an earlier run's output folder), the report gains a section on what changed since it."""
+    ``previous`` (an earlier run's output folder), the report gains a section on what changed since it.
+    ``on_start`` is called with the checked spec once every check has passed, before the first fit: a run
+    that is refused says nothing else."""
     clock = RunClock()
     prepared = prepare(spec)
     earlier = load_run(previous) if previous is not None else None  # a bad folder is refused before any fit
@@ -318,6 +321,8 @@ def run(
     spec = prepared.spec
     out_dir = publish.resolve_out(out_dir, spec.document.report.date or dt.date.today())
     check_output_folder(out_dir, prepared)
+    if on_start is not None:
+        on_start(spec)
     # the spec's divergence limit decides when a fit is re-run at a higher target acceptance; a fitter made
     # elsewhere (cli, audit) is rebuilt when it differs (the compiled models are shared, so this is cheap)
     max_divergences = spec.document.diagnostics.max_divergences

@@ -34,6 +34,7 @@ from reportgen.runs.environment import (
     templates_folder,
 )
 from reportgen.spec import Spec
+from reportgen.spec.loading import replaced_priors
 
 SCIENTIFIC_PACKAGES = (
     "numpy", "scipy", "pandas", "pymc", "pytensor", "arviz", "nutpie", "numba", "xarray",
@@ -181,6 +182,9 @@ def build_record(
             "data_rows": table.n_rows,
             "data_encoding": table.encoding or None,
             "engine": ENGINE_TEXT[document.engine],
+            # the spec's priors on the means and SDs that the exact engine did not use (it integrates them
+            # out under Jeffreys' priors); empty when every prior the spec gives was used
+            "priors_replaced": list(replaced_priors(spec)),
             "sampler": document.sampler.model_dump(mode="json") | {"cores": cores},
             "master_seed": document.sampler.seed,
             "templates_sha256": folder_sha256(templates_folder(spec)),

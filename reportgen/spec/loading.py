@@ -351,6 +351,28 @@ def with_quick(spec: Spec, given: Iterable[str] = ()) -> Spec:
     return spec.model_copy(update={"document": document, "overrides": (*spec.overrides, *noted)})
 
 
+def replaced_priors(spec: Spec) -> tuple[str, ...]:
+    """The spec's priors on the means and SDs that the exact engine replaces by Jeffreys' (flat means,
+    1/sigma SDs), named as "normal means" or "half-normal SDs"; empty under the sampler.
+
+    The exact engine integrates the means and SDs out in closed form only under those priors, so any
+    other family the spec gives them is not used. Rank pairs are left out: their likelihood has no means
+    or SDs, so nothing is replaced there.
+    """
+    if spec.document.engine != "exact":
+        return ()
+    names: set[str] = set()
+    for pair in spec.pairs:
+        if pair.model == "rank":
+            continue
+        if pair.priors.means.family != "flat":
+            names.add(f"{pair.priors.means.family.replace('_', '-')} means")
+        if pair.priors.sds.family != "jeffreys":
+            names.add(f"{pair.priors.sds.family.replace('_', '-')} SDs")
+    # means before SDs, then by name: the console line reads "normal means and half-normal SDs"
+    return tuple(sorted(names, key=lambda name: (name.endswith("SDs"), name)))
+
+
 def spec_from_resolved(
     resolved: dict[str, Any],
     source_path: Path,
