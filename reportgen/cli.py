@@ -173,10 +173,7 @@ def _load(spec_path: Path, engine: str | None = None, model: str | None = None, 
 
 
 def _say_settings(spec: Any) -> None:
-    """Settings the user should know the run uses, said before the first fit: a quick draft's, and the
-    spec's priors on the means and SDs that the exact engine replaces by Jeffreys'."""
-    from reportgen.spec.loading import replaced_priors
-
+    """A quick draft's settings, said before the first fit (every check of the input has passed by then)."""
     with _stdout_may_fail():
         if ("quick", "true") in spec.overrides and spec.document.engine == "exact":
             click.echo("quick draft: the exact engine draws nothing, so only the marking changes; the report "
@@ -186,6 +183,14 @@ def _say_settings(spec: Any) -> None:
             click.echo(f"quick draft: {sampler.draws} draws in each of {sampler.chains} chains, judged against "
                        f"ESS at least {thresholds.ess_min:g} and R-hat below {thresholds.rhat_max:g}; the report "
                        "is marked DRAFT on every page")
+
+
+def _say_replaced_priors(spec: Any) -> None:
+    """The spec's priors on the means and SDs that the exact engine replaced by Jeffreys'. Said with the
+    outcome, so that a run refused before it finishes prints nothing but its error."""
+    from reportgen.spec.loading import replaced_priors
+
+    with _stdout_may_fail():
         replaced = [f"{family} prior on the {what}" for family, what in
                     (name.rsplit(" ", 1) for name in replaced_priors(spec))]
         if replaced:
@@ -216,6 +221,7 @@ def _short_run_hint(spec: Any, failed: Any) -> str:
 
 
 def _report_outcome(outcome: Any, spec: Any) -> None:
+    _say_replaced_priors(spec)
     results = outcome.results
     draws = ", draws/" if any(p.engine == "mcmc" for p in results.pairs) else ""
     changes = ", changes.csv" if (outcome.out_dir / "changes.csv").is_file() else ""

@@ -55,14 +55,16 @@ def status_banner(total: int, failed: list[str], warned: list[str], *, engine: s
         "(R-hat, effective sample size, divergences, E-BFMI).")}
 
 
-def draft_banner(draws: int, chains: int, ess_min: float, *, quick: bool = True, engine: str = "mcmc") -> str:
+def draft_banner(draws: int, chains: int, ess_min: float, *, quick: bool = True, engine: str = "mcmc",
+                 rhat_max: float = 1.01) -> str:
     """What a draft is, for page one and the methods: a quick look has too few draws for a final report; a
     draft marked in the spec is provisional for the author's own reasons."""
     if not quick or engine == "exact":
         return ("Draft: this report is marked as a draft in its specification. Its verdicts are provisional "
                 "and it is not for decisions until a final version is issued.")
     return (f"Draft: a quick look with {draws:,} draws in each of {chains} chain{'s' if chains != 1 else ''}, "
-            f"judged against a relaxed effective-sample-size threshold of {ess_min:g}. Probabilities near a "
+            f"judged against relaxed thresholds (effective sample size at least {ess_min:g}, R-hat below "
+            f"{rhat_max:g}). Probabilities near a "
             "requirement are uncertain and the verdicts are provisional; re-run without --quick before any "
             "result is used.")
 

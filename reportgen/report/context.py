@@ -396,7 +396,8 @@ def build_context(
         "draft": draft,
         "draft_text": narrative.draft_banner(
             document.sampler.draws, document.sampler.chains, document.diagnostics.ess_min,
-            quick=("quick", "true") in spec.overrides, engine=document.engine) if draft else "",
+            quick=("quick", "true") in spec.overrides, engine=document.engine,
+            rhat_max=document.diagnostics.rhat_max) if draft else "",
         "footer": document.report.client or document.report.title,
         "contents": contents_entries(results, pairs, comparison is not None),
         "compact": getattr(document.report, "layout", "full") == "compact",
