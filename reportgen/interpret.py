@@ -343,11 +343,17 @@ def evidence_sentence(log_bf10: float, model: str = "normal", *, rho_a: float = 
 def bayes_factor_cell(log_bf10: float) -> str:
     """Page one's Bayes factor: BF10 when the data favour a correlation, else BF01 = 1/BF10, so the number
     shown is at least 1 and says which side it favours; a dash when there is none."""
+    kind, value = bayes_factor_parts(log_bf10)
+    return f"{kind} {value}" if kind else value
+
+
+def bayes_factor_parts(log_bf10: float) -> tuple[str, str]:
+    """The kind (BF10 or BF01, "" when unknown) and the value of :func:`bayes_factor_cell`, apart."""
     if not math.isfinite(log_bf10):
-        return "\u2014"
+        return "", "\u2014"
     if log_bf10 < 0:
-        return f"BF\u2080\u2081 {format_bayes_factor(-log_bf10)}"
-    return f"BF\u2081\u2080 {format_bayes_factor(log_bf10)}"
+        return "BF\u2080\u2081", format_bayes_factor(-log_bf10)
+    return "BF\u2081\u2080", format_bayes_factor(log_bf10)
 
 
 def crosscheck_sentence(*, applies: bool, reference_priors: bool, mean_gap: float, mean_allowed: float,

@@ -202,6 +202,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "sampler_checks": sampler_checks(result),
         "sampled": result.engine == "mcmc" and result.model != "rank",
         "bf10": interpret.bayes_factor_cell(result.crosscheck.log_bf10),
+        "bf_parts": interpret.bayes_factor_parts(result.crosscheck.log_bf10),
         "evidence_sentence": result.evidence_sentence,
         "savage_dickey": interpret.savage_dickey_sentence(
             savage_dickey_bf10=result.crosscheck.savage_dickey_bf10,
@@ -424,8 +425,7 @@ def build_context(
             "interval": p["interval"], "p_positive": p["p_positive"], "rules": p["rules"],
             "status": p["status"], "sampler_checks": p["sampler_checks"], "bf10": p["bf10"],
             # the value above its kind (BF10 or BF01), so that a narrow column holds both
-            "bf_value": p["bf10"].partition(" ")[2] or p["bf10"], "bf_kind": p["bf10"].partition(" ")[0]
-            if " " in p["bf10"] else "",
+            "bf_kind": p["bf_parts"][0], "bf_value": p["bf_parts"][1],
             "model": p["checks"]["model_short"],
         } for p in pairs],
         "model_warnings": run_checks_context(results, _anchor),
