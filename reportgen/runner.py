@@ -10,6 +10,7 @@ failed, interrupted or killed run leaves the previous outputs as they were.
 from __future__ import annotations
 
 import csv
+import dataclasses
 import datetime as dt
 import hashlib
 import io
@@ -200,12 +201,12 @@ def fit_all(
         done: dict[str, PairFit] = {}
         failures: dict[str, str] = {}
         for model in sampled_models(spec.document.engine, pair.pair.model, pair.stats.n,
-                                    spec.document.checks.student_t_max_rows):
+                                    spec.document.checks.student_t_max_rows, adjusted=pair.adjustment is not None):
             fit_started = time.perf_counter()
             # the sampler's warnings go to run.log (the filters in force still decide which are kept)
             with warnings.catch_warnings(record=True) as caught:
                 try:
-                    fit = fitter.fit(pair, spec.document.sampler.seed, model)
+                    fit = fitter.fit(fitted_data(pair, model), spec.document.sampler.seed, model)
                 except Exception as exc:  # one pair's sampler crashing must not sink the other pairs
                     failures[model] = _one_line(exc)
                 else:
@@ -231,6 +232,14 @@ def fit_all(
     return run_results(spec, tuple(results)), fits
 
 
+def fitted_data(pair: PairData, model: str) -> PairData:
+    """The data a model is fitted to: the partial model sees the rows complete on the controls too, so its
+    draws are mapped back to the data's units with those rows' means and SDs."""
+    if model == "partial" and pair.adjustment is not None:
+        return dataclasses.replace(pair, stats=pair.adjustment.stats)
+    return pair
+
+
 def _not_finite(fit: PairFit) -> str | None:
     """Why draws holding NaN or inf cannot be summarised (a sampler that stopped early pads with NaN)."""
     bad = [name for name, values in fit.draws.items() if not np.isfinite(values).all()]
@@ -250,7 +259,8 @@ def _one_line(exc: BaseException) -> str:
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 # Columns of results.csv that hold text; every other column holds numbers that reportgen formatted.
 TEXT_COLUMNS = frozenset({"pair", "x", "y", "status", "rope_decision", "interval_kind", "status_reasons", "engine",
-                          "model", "influential_rows", "prior_sensitive", "model_warnings", "borderline_rules"})
+                          "model", "influential_rows", "prior_sensitive", "model_warnings", "borderline_rules",
+                          "group", "groups_model", "simpson_warning", "controls"})
 
 
 def neutralised(text: str) -> str:

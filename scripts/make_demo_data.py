@@ -132,6 +132,20 @@ def make_survey(seed: int = SEED) -> pd.DataFrame:
     erosion = np.digitize(-0.8 * condition + erosion_noise, [-1.2, -0.3, 0.5, 1.3])
     invertebrates = 1 + np.digitize(0.8 * condition + invertebrate_noise, [-1.0, -0.2, 0.6, 1.4])
 
+    # Drawn after everything above, so the earlier columns stay as they were.
+    # A planted Simpson's paradox: discharge and ammonium. Downstream stations carry both more water and more
+    # ammonium (treated effluent joins below QC-03), so across stations the two rise together; at any one
+    # station a higher flow dilutes the ammonium, so within every station they fall together.
+    reach = np.repeat(np.arange(len(STATIONS)), MONTHS)  # 0 = the upper weir ... 6 = the estuary mouth
+    flow_anomaly = rng.normal(0, 1, rows)
+    discharge = np.exp(np.log(0.4 + 0.55 * reach) + 0.25 * flow_anomaly)
+    ammonium = (0.04 + 0.035 * reach) * np.exp(-0.22 * flow_anomaly + rng.normal(0, 0.2, rows))
+
+    # A raw correlation that the water temperature explains: filamentous algae and midge larvae both thrive
+    # in warm water and have nothing else to do with each other here.
+    algae_cover = np.clip(4.0 + 2.2 * temperature + rng.normal(0, 3.0, rows), 0.0, 100.0)
+    midge_larvae = 30.0 + 11.0 * temperature + rng.normal(0, 16.0, rows)
+
     survey = pd.DataFrame({
         "station": station,
         "month": month,
@@ -148,6 +162,10 @@ def make_survey(seed: int = SEED) -> pd.DataFrame:
         "e_coli_cfu_100ml": e_coli.round(0),
         "bank_erosion_score": erosion,
         "invertebrate_class": invertebrates,
+        "discharge_m3_s": discharge.round(3),
+        "ammonium_mg_l": ammonium.round(4),
+        "filamentous_algae_pct": algae_cover.round(1),
+        "midge_larvae_per_m2": midge_larvae.round(0),
     })
     order = np.lexsort((np.repeat(np.arange(len(STATIONS)), MONTHS), month))  # month first, then station
     return survey.iloc[order].reset_index(drop=True)

@@ -17,7 +17,9 @@ from reportgen.checks.summary import HEAVY_TAILS, PRIOR_SENSITIVE, ROBUST_DIFFER
 from reportgen.data import PairData
 from reportgen.fit import PairFit, derive_seed
 from reportgen.models.rank import rank_posterior
+from reportgen.results.adjustment import adjustment_result
 from reportgen.results.choice import choose, nu_is_heavy
+from reportgen.results.groups import group_analysis
 from reportgen.results.pair import (
     PairResult,
     exact_posterior_of,
@@ -30,16 +32,21 @@ from reportgen.spec import Spec
 PREDICTIVE_DRAWS = 1000
 
 
-def sampled_models(engine: str, model: str, n: int = 0, student_t_max_rows: int = 20_000) -> tuple[str, ...]:
-    """The sampled models a pair needs: none with the exact engine or the rank model.
+def sampled_models(engine: str, model: str, n: int = 0, student_t_max_rows: int = 20_000,
+                   adjusted: bool = False) -> tuple[str, ...]:
+    """The sampled models a pair needs: none with the exact engine, none but the partial model (for a pair
+    with controls, ``adjusted``) with the rank model.
 
     Under ``auto`` a pair of more than ``student_t_max_rows`` rows gets the rank model as its robust fit.
     """
-    if engine == "exact" or model == "rank":
+    if engine == "exact":
         return ()
+    partial = ("partial",) if adjusted else ()
+    if model == "rank":
+        return partial
     if model == "student_t" or (model == "auto" and n <= student_t_max_rows):
-        return ("normal", "student_t")
-    return ("normal",)
+        return ("normal", "student_t", *partial)
+    return ("normal", *partial)
 
 
 def rank_is_robust_fit(engine: str, model: str, n: int, student_t_max_rows: int) -> bool:
@@ -132,4 +139,15 @@ def pair_outcome(spec: Spec, data: PairData, fits: dict[str, PairFit], failures:
         leading = dataclasses.replace(leading, diagnosis=dataclasses.replace(
             leading.diagnosis, status="warn" if leading.diagnosis.status == "pass" else leading.diagnosis.status,
             reasons=(*leading.diagnosis.reasons, f"the robust fit failed ({robust_failure})")))
-    return dataclasses.replace(leading, checks=checks, sensitivity=sensitivity, choice=choice)
+    groups = adjustment = None
+    if data.groups is not None:
+        groups = group_analysis(spec, data.groups, data.pair.groups, data.pair.priors.rho.shapes,
+                                leading.p_positive, leading.rho.median, spec.display_name(data.pair.group_by))
+    if data.adjustment is not None:
+        adjustment = adjustment_result(spec, data, fits.get("partial"))
+        if "partial" in failures:
+            adjustment = dataclasses.replace(adjustment, diagnosis=dataclasses.replace(
+                adjustment.diagnosis, status="fail", reasons=(f"the sampler failed ({failures['partial']}); the "
+                                                              "partial correlation shown is the exact engine's",)))
+    return dataclasses.replace(leading, checks=checks, sensitivity=sensitivity, choice=choice, groups=groups,
+                               adjustment=adjustment)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import time
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -19,6 +19,10 @@ from reportgen.fit import PairFit, derive_seed
 from reportgen.models.rank import rank_posterior
 from reportgen.results import decisions
 from reportgen.spec import Spec
+
+if TYPE_CHECKING:
+    from reportgen.results.adjustment import Adjustment
+    from reportgen.results.groups import GroupAnalysis
 
 # what results and the record keep of a pair's sums; rss (the residual sum of squares) carries 1 - |r|
 SUFFICIENT_KEYS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy", "rss")
@@ -131,6 +135,10 @@ class PairResult:
     checks: ModelChecks | None = None
     sensitivity: Sensitivity | None = None
     choice: ModelChoice | None = None
+    # The pair's rows group by group, and its partial correlation given the control columns, when the spec
+    # asks for them (filled in by results.outcome).
+    groups: GroupAnalysis | None = None
+    adjustment: Adjustment | None = None
 
     @property
     def rho(self) -> ParameterSummary:

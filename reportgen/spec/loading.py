@@ -17,7 +17,10 @@ from pydantic import ValidationError
 from reportgen.errors import SpecError
 from reportgen.spec.messages import describe_problem, describe_validation_error, format_location
 from reportgen.spec.schema import (
+    GroupsModel,
     ModelName,
+    PairEntry,
+    PairSet,
     PriorOverrides,
     Priors,
     Sampler,
@@ -39,6 +42,9 @@ class PairSpec(_Frozen):
     # Every pair set whose matrix shows this pair: its own, and for a listed pair each set that holds both
     # its columns (the listed pair is fitted once, with its own settings, and drawn in those matrices too).
     pair_sets: tuple[str, ...] = ()
+    group_by: str = ""  # the grouping column; "" for none
+    groups: GroupsModel = "separate"  # how the groups are fitted: each alone, or partially pooled as well
+    controls: tuple[str, ...] = ()  # the columns the partial correlation adjusts for
 
     @property
     def key(self) -> str:
@@ -91,7 +97,14 @@ class Spec(_Frozen):
         for pair in self.pairs:
             seen.setdefault(pair.x)
             seen.setdefault(pair.y)
+            for column in pair.controls:
+                seen.setdefault(column)
         return tuple(seen)
+
+    @property
+    def group_columns(self) -> tuple[str, ...]:
+        """The grouping columns the pairs name, read as labels rather than numbers."""
+        return tuple(dict.fromkeys(pair.group_by for pair in self.pairs if pair.group_by))
 
     def variable(self, column: str) -> Variable:
         return self.document.variables.get(column, Variable())
@@ -123,10 +136,11 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
     prefix = f"{source}: " if source is not None else ""
 
     def add(x: str, y: str, label: str, overrides: PriorOverrides, where: str, pair_set: str,
-            model: str | None) -> None:
+            model: str | None, entry: PairEntry | PairSet | None) -> None:
         if x == y:
             raise SpecError(f"{prefix}`{where}`: a pair needs two different columns, got `{x}` as both "
                             "x and y; change one of them")
+        group_by, groups, controls = _grouping(document, entry, x, y, f"{prefix}`{where}`")
         identity = frozenset((x, y))
         if pair_set and identity in listed:
             index = listed[identity]
@@ -140,7 +154,8 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
         seen[identity] = where
         merged = _merge_priors(document.priors, overrides)
         pair = PairSpec(x=x, y=y, label=label, priors=merged, pair_set=pair_set, model=model or document.model,
-                        pair_sets=(pair_set,) if pair_set else ())
+                        pair_sets=(pair_set,) if pair_set else (), group_by=group_by, groups=groups,
+                        controls=controls)
         if pair.key in keys:
             other_x, other_y, other_where = keys[pair.key]
             raise SpecError(f"{prefix}`{where}`: the pair ({x}, {y}) would be named \"{pair.key}\", like the pair "
@@ -153,7 +168,7 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
         pairs.append(pair)
 
     for index, entry in enumerate(document.pairs):
-        add(entry.x, entry.y, entry.label, entry.priors, f"pairs[{index}]", "", entry.model)
+        add(entry.x, entry.y, entry.label, entry.priors, f"pairs[{index}]", "", entry.model, entry)
     for index, pair_set in enumerate(document.pair_sets):
         repeated = sorted({c for c in pair_set.columns if pair_set.columns.count(c) > 1})
         if repeated:
@@ -161,8 +176,33 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
                             "list each column once")
         for x, y in itertools.combinations(pair_set.columns, 2):
             add(x, y, "", pair_set.priors, f"pair_sets[{index}] ({pair_set.name})", pair_set.name,
-                pair_set.model)
+                pair_set.model, pair_set)
     return tuple(pairs)
+
+
+def _grouping(document: SpecDocument, entry: PairEntry | PairSet | None, x: str, y: str,
+              where: str) -> tuple[str, GroupsModel, tuple[str, ...]]:
+    """A pair's grouping column, groups model and control columns: its own where set, else the spec-wide ones.
+
+    The grouping and control columns must differ from the pair's own columns and from each other: a column
+    cannot both be correlated and adjusted for, or split the rows it is measured on.
+    """
+    group_by = entry.group_by if entry is not None and entry.group_by is not None else document.group_by
+    groups = entry.groups if entry is not None and entry.groups is not None else document.groups
+    controls = entry.controls if entry is not None and entry.controls is not None else document.controls
+    if group_by in (x, y):
+        raise SpecError(f"{where}: group_by = \"{group_by}\" is one of the pair's own columns; group by "
+                        "another column, or set group_by = \"\" for this pair")
+    for column in controls:
+        if column in (x, y):
+            raise SpecError(f"{where}: controls names `{column}`, one of the pair's own columns; a column cannot "
+                            "be adjusted for in its own correlation, so remove it from controls")
+        if column == group_by:
+            raise SpecError(f"{where}: `{column}` is both the grouping column and a control; keep it in one")
+    repeated = sorted({c for c in controls if controls.count(c) > 1})
+    if repeated:
+        raise SpecError(f"{where}: controls lists `{repeated[0]}` more than once; list each column once")
+    return group_by, groups, tuple(controls)
 
 
 MAX_NESTING = 32  # a spec needs about 5 levels ([[pairs]] -> priors -> rho -> value)

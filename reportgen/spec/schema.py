@@ -294,6 +294,11 @@ class PriorOverrides(_Strict):
 
 
 ModelName = Literal["normal", "student_t", "rank", "auto"]
+GroupsModel = Literal["separate", "partial"]
+# a grouping column's name, or "" on a pair to switch off the spec-wide group_by
+GroupColumn = Annotated[str, Field(max_length=MAX_COLUMN_NAME)]
+MAX_CONTROLS = 10
+Controls = Annotated[tuple[ColumnName, ...], Field(max_length=MAX_CONTROLS)]
 
 
 class PairEntry(_Strict):
@@ -302,6 +307,9 @@ class PairEntry(_Strict):
     label: LineText = ""
     model: ModelName | None = None  # None: the spec-wide `model`
     priors: PriorOverrides = PriorOverrides()
+    group_by: GroupColumn | None = None  # None: the spec-wide `group_by`
+    groups: GroupsModel | None = None
+    controls: Controls | None = None  # None: the spec-wide `controls`; [] for none
 
 
 class PairSet(_Strict):
@@ -309,6 +317,9 @@ class PairSet(_Strict):
     columns: Annotated[tuple[ColumnName, ...], Field(min_length=2, max_length=40)]
     model: ModelName | None = None
     priors: PriorOverrides = PriorOverrides()
+    group_by: GroupColumn | None = None
+    groups: GroupsModel | None = None
+    controls: Controls | None = None
 
 
 class Checks(_Strict):
@@ -375,6 +386,8 @@ class Compare(_Strict):
 
     # a move of rho larger than this counts as material; the posterior probability of such a move is reported
     margin: Annotated[float, Field(gt=0, le=2)] = 0.1
+    # the groups whose correlations are compared two by two; empty: every two groups when there are few
+    groups: Annotated[tuple[LineText, ...], Field(max_length=40)] = ()
 
 
 class Rope(_Strict):
@@ -413,6 +426,9 @@ class SpecDocument(_Strict):
 
     engine: Literal["mcmc", "exact"] = "mcmc"
     model: ModelName = "normal"
+    group_by: GroupColumn = ""  # "": no groups
+    groups: GroupsModel = "separate"
+    controls: Controls = ()
     report: ReportMeta
     data: DataSource
     variables: dict[ColumnName, Variable] = {}

@@ -39,6 +39,14 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from reportgen.data.controls import ControlData, control_data
+from reportgen.data.groups import GroupData, group_data, group_labels
+from reportgen.data.sums import (
+    PERFECT_CORRELATION,
+    PERFECT_CORRELATION_COMPLEMENT,
+    SufficientStats,
+    sufficient_stats,
+)
 from reportgen.errors import DataError
 from reportgen.io.common import nfc, nfc_lookup, no_rows
 from reportgen.io.csv import ParsedColumn, parse_cells, read_csv_table
@@ -46,55 +54,15 @@ from reportgen.io.excel import SheetProblem, read_excel
 from reportgen.io.parquet import read_parquet
 from reportgen.spec import PairSpec, Spec
 
-__all__ = ["MIN_COMPLETE_ROWS", "PERFECT_CORRELATION", "PERFECT_CORRELATION_COMPLEMENT", "PairData", "ParsedColumn",
+__all__ = ["MIN_COMPLETE_ROWS", "ControlData", "GroupData",
+           "PERFECT_CORRELATION", "PERFECT_CORRELATION_COMPLEMENT", "PairData", "ParsedColumn",
            "SheetProblem", "SufficientStats", "Table", "file_sha256", "load_pairs", "load_table", "pair_data",
            "sufficient_stats"]
 
 MIN_COMPLETE_ROWS = 4
 EXCEL_SUFFIXES = {".xlsx", ".xlsm", ".xls"}
 PARQUET_SUFFIXES = {".parquet", ".pq"}
-# 1 - |r| this small means one column is an exact linear function of the other. The test reads the
-# complement computed from the residuals (SufficientStats.one_minus_abs_r), not the rounded r; the
-# exact engine honours every complement down to exact.MIN_ONE_MINUS_ABS_R, far below this bound.
-PERFECT_CORRELATION_COMPLEMENT = 1e-12
-PERFECT_CORRELATION = 1.0 - PERFECT_CORRELATION_COMPLEMENT  # the same bound on |r|
 DECIMAL_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d+)+$|^[+-]?\d+,\d+$")
-
-
-@dataclass(frozen=True)
-class SufficientStats:
-    """What the bivariate-normal likelihood needs from the rows of one pair."""
-
-    n: int
-    mean_x: float
-    mean_y: float
-    sxx: float  # sum of (x - mean_x)^2
-    syy: float
-    sxy: float  # sum of (x - mean_x)(y - mean_y)
-    # sum of squared residuals of y on x, sum (dy - (sxy/sxx) dx)^2, so that 1 - r^2 = rss / syy keeps its
-    # digits when |r| is within rounding of 1; None when unknown (statistics built without the rows)
-    rss: float | None = None
-
-    @property
-    def sd_x(self) -> float:
-        return float(np.sqrt(self.sxx / (self.n - 1)))
-
-    @property
-    def sd_y(self) -> float:
-        return float(np.sqrt(self.syy / (self.n - 1)))
-
-    @property
-    def sample_r(self) -> float:
-        return float(self.sxy / np.sqrt(self.sxx * self.syy))
-
-    @property
-    def one_minus_abs_r(self) -> float:
-        """``1 - |r|`` without the cancellation of forming it from r: ``(1 - r^2) / (1 + |r|)`` with
-        ``1 - r^2 = rss / syy``; ``1 - |r|`` itself when the residual sum is unknown."""
-        abs_r = abs(self.sample_r)
-        if self.rss is None:
-            return 1.0 - abs_r
-        return float(self.rss / self.syy / (1.0 + abs_r))
 
 
 @dataclass(frozen=True)
@@ -108,6 +76,8 @@ class PairData:
     # each complete row's number in the input file as a reader sees it (CSV: line number with the
     # header on line 1; Excel: sheet row; Parquet: 1, 2, ...); empty when the pair was built by hand
     rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    groups: GroupData | None = None  # the pair's rows split by its grouping column, when it has one
+    adjustment: ControlData | None = None  # x and y adjusted for the pair's control columns, when it has any
 
     @property
     def row_numbers(self) -> np.ndarray:
@@ -143,39 +113,6 @@ def file_sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
-def _centred(values: np.ndarray) -> tuple[float, np.ndarray]:
-    """The mean and the deviations from it, taken after subtracting a pivot (the median).
-
-    Summing values with a large common offset (1e15 + u) rounds the sum to the offset's float
-    spacing, and that error in the mean then enters every square. Near the pivot the differences
-    are exact (Sterbenz: two floats within a factor 2 of each other subtract exactly), so the mean
-    of the differences, and the deviations from it, keep the digits of u.
-    """
-    pivot = float(np.median(values))
-    shifted = values - pivot
-    shift_mean = float(np.mean(shifted))
-    return pivot + shift_mean, shifted - shift_mean
-
-
-def sufficient_stats(x: np.ndarray, y: np.ndarray) -> SufficientStats:
-    """Pivot-centred two-pass sums, which stay accurate when the means are large, plus the residual
-    sum of squares of y on x from a further pass, so that ``1 - |r|`` keeps its digits near 1."""
-    mean_x, dx = _centred(x)
-    mean_y, dy = _centred(y)
-    sxx = float(dx @ dx)
-    sxy = float(dx @ dy)
-    residual = dy - (sxy / sxx) * dx if sxx > 0.0 else dy
-    return SufficientStats(
-        n=int(x.size),
-        mean_x=mean_x,
-        mean_y=mean_y,
-        sxx=sxx,
-        syy=float(dy @ dy),
-        sxy=sxy,
-        rss=float(residual @ residual),
-    )
-
-
 def _detect_format(path: Path, declared: str) -> str:
     if declared != "auto":
         return declared
@@ -200,6 +137,16 @@ def _key_paths(spec: Spec, column: str) -> str:
     for index, pair_set in enumerate(document.pair_sets):
         if column in pair_set.columns:
             return f"pair_sets[{index}].columns"
+    for key, entries in (("pairs", document.pairs), ("pair_sets", document.pair_sets)):
+        for index, entry in enumerate(entries):
+            if entry.group_by == column:
+                return f"{key}[{index}].group_by"
+            if entry.controls and column in entry.controls:
+                return f"{key}[{index}].controls"
+    if column == document.group_by:
+        return "group_by"
+    if column in document.controls:
+        return "controls"
     return "pairs"
 
 
@@ -287,7 +234,7 @@ def load_table(spec: Spec) -> Table:
         frame, sheet = read_excel(path, source.sheet)
         available = list(frame.columns)
     else:
-        frame, available = read_parquet(path, wanted)
+        frame, available = read_parquet(path, (*wanted, *spec.group_columns))
     if len(frame) == 0:
         raise no_rows(path)
     for column in spec.document.variables:
@@ -299,8 +246,12 @@ def load_table(spec: Spec) -> Table:
         kept = list(source.columns)
     lookup = nfc_lookup(frame.columns)
     frame = frame.loc[:, list(dict.fromkeys(lookup[nfc(c)] for c in kept if nfc(c) in lookup))]
-    for column in wanted:
+    for column in (*wanted, *spec.group_columns):
         _require_column(path, kept, column, _key_paths(spec, column), bool(source.columns))
+    if parsed is not None and spec.group_columns:
+        raise DataError(f"{path}: the file is too large to hold in memory, and grouping (group_by = "
+                        f"\"{spec.group_columns[0]}\") needs its labels held; save the table as Parquet, whose "
+                        "columns are read one by one, or set group_by = \"\"")
     return Table(path=path, sha256=file_sha256(path), frame=frame, encoding=encoding, sheet=sheet,
                  delimiter=delimiter, parsed=parsed)
 
@@ -413,10 +364,39 @@ def pair_data(table: Table, pair: PairSpec, missing_policy: str) -> PairData:
         raise DataError(f"{where}: the columns are perfectly correlated (sample r = {r:+.6f}): one is an exact "
                         "linear function of the other, so there is nothing to estimate; pair other columns")
     rows = np.asarray(table.frame.index, dtype=np.int64)[complete]
-    return PairData(pair=pair, x=x, y=y, n_rows=table.n_rows, n_dropped=n_dropped, stats=stats, rows=rows)
+    groups = None
+    if pair.group_by:
+        cells = table.frame[_data_column(table, pair.group_by)].to_numpy(dtype=object)
+        groups = group_data(x, y, group_labels(cells[complete]), pair.group_by, where)
+    adjustment = None
+    if pair.controls:
+        columns = {name: _numeric_column(table, name) for name in pair.controls}
+        adjustment = control_data(x_all, y_all, columns, where, (pair.x, pair.y))
+    return PairData(pair=pair, x=x, y=y, n_rows=table.n_rows, n_dropped=n_dropped, stats=stats, rows=rows,
+                    groups=groups, adjustment=adjustment)
 
 
 def load_pairs(spec: Spec, table: Table) -> tuple[PairData, ...]:
     """Every pair of the spec, validated before anything is fitted."""
     policy = spec.document.data.missing
-    return tuple(pair_data(table, pair, policy) for pair in spec.pairs)
+    pairs = tuple(pair_data(table, pair, policy) for pair in spec.pairs)
+    _check_compared_groups(spec, table, pairs)
+    return pairs
+
+
+def _check_compared_groups(spec: Spec, table: Table, pairs: tuple[PairData, ...]) -> None:
+    """Every group that ``[compare] groups`` names must be a level of some pair's grouping column."""
+    asked = spec.document.compare.groups
+    if not asked:
+        return
+    found = {label for pair in pairs if pair.groups is not None
+             for label in (*pair.groups.labels, *(g.label for g in pair.groups.left_out))}
+    if not found:
+        raise DataError(f"{spec.source_path}: [compare] groups lists groups, but no pair has group_by; set "
+                        "group_by or remove [compare] groups")
+    missing = [label for label in asked if label not in found]
+    if missing:
+        close = difflib.get_close_matches(missing[0], sorted(found), n=3, cutoff=0.5)
+        hint = f"; close matches: {', '.join(close)}" if close else ""
+        raise DataError(f"{table.path}: [compare] groups names \"{missing[0]}\", which is not a value of any "
+                        f"grouping column in the data{hint}; correct it or remove it from [compare] groups")

@@ -1,0 +1,182 @@
+"""A pair's correlation group by group: each group alone, partially pooled, compared, and Simpson's warning.
+
+Each group's own posterior is the exact one (Jeffreys' priors on the group's means and SDs, the pair's prior
+on rho): it needs only the group's sums, so it costs nothing, and no sampler is run for groups. The
+within-group correlation (one rho shared by every group, each group with its own means) is the exact
+posterior from the pooled within-group sums with ``n - (G - 1)`` rows: each group's mean costs one degree of
+freedom, as in the analysis of covariance (common practice). Under ``groups = "partial"`` the groups'
+correlations are also fitted as draws from one normal distribution on Fisher's z scale
+(``models.hierarchical``), and the groups are compared from their own (separate) posteriors, which are
+independent because the groups share no rows.
+
+Simpson's warning fires when the pooled correlation and the within-group one (or, when partially pooled,
+the groups' mean) have opposite signs, each with probability at least ``SIMPSON_PROBABILITY``.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+
+import numpy as np
+
+from reportgen.data import GroupData, SufficientStats
+from reportgen.data.groups import LeftOutGroup
+from reportgen.difference import RhoDifference, posterior_from_stats, rho_difference
+from reportgen.models.hierarchical import GroupInput, PartialPooling, partial_pooling, spread_sentence
+from reportgen.results.pair import exact_posterior_of
+from reportgen.results.rho import RhoSummary, from_exact, from_grid
+from reportgen.spec import Spec
+
+__all__ = ["GroupAnalysis", "GroupComparison", "GroupFit", "group_analysis"]
+
+SIMPSON_PROBABILITY = 0.95
+MAX_AUTOMATIC_COMPARISONS = 5  # up to this many groups, every two are compared unless [compare] groups says
+
+
+@dataclass(frozen=True)
+class GroupFit:
+    label: str
+    n: int
+    sample_r: float
+    alone: RhoSummary  # from this group's rows only
+    pooled: RhoSummary | None  # partially pooled; None under groups = "separate"
+
+
+@dataclass(frozen=True)
+class GroupComparison:
+    first: str
+    second: str
+    difference: RhoDifference  # rho(second) - rho(first)
+    sentence: str
+
+
+@dataclass(frozen=True)
+class GroupAnalysis:
+    column: str
+    model: str  # "separate" or "partial"
+    groups: tuple[GroupFit, ...]
+    left_out: tuple[LeftOutGroup, ...]
+    n_unlabelled: int
+    within: RhoSummary  # one correlation shared by all groups, each with its own means and SDs
+    within_n: int
+    pooling: PartialPooling | None
+    mean: RhoSummary | None  # the partially pooled groups' mean correlation (tanh of the mean on z)
+    comparisons: tuple[GroupComparison, ...]
+    comparisons_note: str  # why no comparison is shown, when none is
+    simpson: bool
+    simpson_sentence: str
+    summary_sentence: str
+    left_out_sentence: str
+    spread_sentence: str
+
+    @property
+    def spread_median(self) -> float:
+        return self.pooling.spread.median if self.pooling is not None else float("nan")
+
+
+def within_stats(groups: tuple[SufficientStats, ...]) -> SufficientStats:
+    """The pooled within-group sums: every group centred on its own means, with n - (G - 1) rows."""
+    sxx = sum(g.sxx for g in groups)
+    syy = sum(g.syy for g in groups)
+    sxy = sum(g.sxy for g in groups)
+    n = sum(g.n for g in groups) - (len(groups) - 1)
+    rss = syy - sxy * sxy / sxx  # loses digits only when |r| is within rounding of 1, refused per group
+    return SufficientStats(n=n, mean_x=0.0, mean_y=0.0, sxx=sxx, syy=syy, sxy=sxy, rss=max(rss, 0.0) or None)
+
+
+def _compared_labels(spec: Spec, labels: tuple[str, ...]) -> tuple[tuple[str, ...], str]:
+    asked = spec.document.compare.groups
+    if asked:
+        chosen = tuple(label for label in labels if label in asked)
+        note = "" if len(chosen) >= 2 else ("Fewer than two of the groups listed in [compare] groups were fitted "
+                                            "for this pair, so no two are compared.")
+        return chosen, note
+    if len(labels) <= MAX_AUTOMATIC_COMPARISONS:
+        return labels, ""
+    return (), (f"With {len(labels)} groups the {len(labels) * (len(labels) - 1) // 2} comparisons of two are not "
+                "shown; list the groups to compare in [compare] groups.")
+
+
+def _comparison_sentence(first: str, second: str, difference: RhoDifference) -> str:
+    return (f"\u03c1 is higher in {second} than in {first} with probability {difference.p_rose:.2f}; the two "
+            f"differ by more than {difference.margin:g} with probability {difference.p_moved:.2f} (difference "
+            f"{difference.median:+.2f}, {difference.credible_mass:.0%} interval {difference.lower:+.2f} to "
+            f"{difference.upper:+.2f}).")
+
+
+def _simpson(pooled_p_positive: float, reference: RhoSummary) -> bool:
+    level = SIMPSON_PROBABILITY
+    return ((pooled_p_positive >= level and 1.0 - reference.p_positive >= level)
+            or (1.0 - pooled_p_positive >= level and reference.p_positive >= level))
+
+
+def _direction(p_positive: float) -> str:
+    return "positive" if p_positive >= 0.5 else "negative"
+
+
+def group_analysis(spec: Spec, groups: GroupData, model: str, rho_shapes: tuple[float, float],
+                   pooled_p_positive: float, pooled_median: float, noun: str) -> GroupAnalysis:
+    """Every grouped number of one pair; ``rho_shapes`` is the pair's prior on rho, ``pooled_*`` describe the
+    pair's fit to all rows together and ``noun`` names the grouping column in sentences."""
+    a, b = rho_shapes
+    fits = []
+    posteriors = {}
+    for group in groups.groups:
+        posterior = exact_posterior_of(group.stats, a, b)
+        posteriors[group.label] = group.stats
+        fits.append(GroupFit(label=group.label, n=group.stats.n, sample_r=group.stats.sample_r,
+                             alone=from_exact(posterior, spec), pooled=None))
+    pooled_within = within_stats(tuple(g.stats for g in groups.groups))
+    within = from_exact(exact_posterior_of(pooled_within, a, b), spec)
+    pooling = mean = None
+    if model == "partial" and len(groups.groups) >= 2:
+        pooling = partial_pooling([GroupInput(g.label, g.stats.n, g.stats.sample_r, g.stats.one_minus_abs_r)
+                                   for g in groups.groups], spec.document.summary.credible_mass)
+        fits = [GroupFit(label=fit.label, n=fit.n, sample_r=fit.sample_r, alone=fit.alone,
+                         pooled=from_grid(shrunk.grid, shrunk.density, spec))
+                for fit, shrunk in zip(fits, pooling.groups, strict=True)]
+        m = pooling.mean_rho
+        mean = RhoSummary(median=m.median, lower=m.lower, upper=m.upper, mean=m.mean, sd=float("nan"),
+                          p_positive=pooling.p_mean_positive, p_rope=float("nan"), interval_kind="central",
+                          rules=())
+    labels, note = _compared_labels(spec, tuple(f.label for f in fits))
+    margin, mass = spec.document.compare.margin, spec.document.summary.credible_mass
+    comparisons = []
+    for first, second in itertools.combinations(labels, 2):
+        difference = rho_difference(posterior_from_stats(posteriors[first], a, b),
+                                    posterior_from_stats(posteriors[second], a, b), margin, mass,
+                                    names=(first, second))
+        comparisons.append(GroupComparison(first, second, difference,
+                                           _comparison_sentence(first, second, difference)))
+    reference = mean if mean is not None else within
+    simpson = _simpson(pooled_p_positive, reference)
+    what = "the groups' mean correlation (partially pooled)" if mean is not None else "the within-group correlation"
+    simpson_sentence = ""
+    if simpson:
+        simpson_sentence = (
+            f"Simpson's paradox: over all rows together the correlation is {_direction(pooled_p_positive)} "
+            f"(median {pooled_median:+.2f}), but {what} is {_direction(reference.p_positive)} (median "
+            f"{reference.median:+.2f}), each with probability at least {SIMPSON_PROBABILITY:.2f}. The pooled "
+            f"number mixes differences between the {noun} values with the relation inside each; read the "
+            "grouped result, and ask which of the two the decision needs.")
+    left_out_sentence = ""
+    if groups.left_out:
+        listed = "; ".join(f"{g.label} ({g.reason})" for g in groups.left_out)
+        left_out_sentence = f"Left out of the grouped fits: {listed}."
+    if groups.n_unlabelled:
+        left_out_sentence += (f" {groups.n_unlabelled} row{'s' if groups.n_unlabelled != 1 else ''} with no "
+                              f"{noun} value {'are' if groups.n_unlabelled != 1 else 'is'} left out of the grouped "
+                              "fits.")
+    shown = np.array([f.alone.median for f in fits])
+    summary_sentence = (
+        f"Within the {len(fits)} {noun} groups the correlation ranges from {shown.min():+.2f} to {shown.max():+.2f} "
+        f"(medians, each group alone); one correlation shared by all groups, each with its own means and SDs, "
+        f"has median {within.median:+.2f} ({within.lower:+.2f} to {within.upper:+.2f}).")
+    return GroupAnalysis(
+        column=groups.column, model=model, groups=tuple(fits), left_out=groups.left_out,
+        n_unlabelled=groups.n_unlabelled, within=within, within_n=pooled_within.n, pooling=pooling, mean=mean,
+        comparisons=tuple(comparisons), comparisons_note=note if not comparisons else "",
+        simpson=simpson, simpson_sentence=simpson_sentence, summary_sentence=summary_sentence.strip(),
+        left_out_sentence=left_out_sentence.strip(),
+        spread_sentence=spread_sentence(pooling, noun) if pooling is not None else "")
