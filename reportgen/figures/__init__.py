@@ -17,6 +17,8 @@ Layout of the package
   and :class:`DensityPanel`;
 * :mod:`reportgen.figures.diagram` — :func:`model_diagram`;
 * :mod:`reportgen.figures.checks` — :func:`mahalanobis_qq` (model checks);
+* :mod:`reportgen.figures.groups` — :func:`group_forest` and its :class:`GroupRow`
+  (rho of one pair by group, alone and partially pooled);
 * :mod:`reportgen.figures.placeholder` — :func:`unavailable_figure`, the
   stand-in for a figure whose inputs were refused.
 
@@ -52,6 +54,7 @@ from __future__ import annotations
 
 from reportgen.figures.checks import mahalanobis_qq
 from reportgen.figures.diagram import model_diagram
+from reportgen.figures.groups import GroupRow, group_forest
 from reportgen.figures.pair import (
     DensityPanel,
     ellipse_geometry,
@@ -91,10 +94,12 @@ __all__ = [
     "TEAL",
     "DensityPanel",
     "FigureError",
+    "GroupRow",
     "correlation_cmap",
     "correlation_matrix",
     "ellipse_geometry",
     "forest_plot",
+    "group_forest",
     "mahalanobis_qq",
     "model_diagram",
     "parameter_densities",

@@ -50,8 +50,8 @@ _POOLED_OFFSET = 0.19
 _LABEL_PT = 150.0  # width of the row-label column, as in the forest plot of all pairs
 _NUMBER_GAP = 1.1  # least distance between two stacked number lines, in multiples of their font size
 _MAX_HEIGHT = 10.0
-_OVERHEAD_IN = 0.75  # x tick labels, axis label, the number header and padding
-_LEGEND_IN = 0.25
+_OVERHEAD_IN = 0.55  # x tick labels, axis label, the number header and padding (measured)
+_LEGEND_IN = 0.23
 
 
 @dataclass(frozen=True)

@@ -14,9 +14,9 @@ from __future__ import annotations
 
 from types import ModuleType
 
-from reportgen.models import normal, student_t
+from reportgen.models import normal, partial, student_t
 from reportgen.models.base import ModelInputs, Standardisation, to_data_units
 
-SAMPLED: dict[str, ModuleType] = {normal.NAME: normal, student_t.NAME: student_t}
+SAMPLED: dict[str, ModuleType] = {normal.NAME: normal, student_t.NAME: student_t, partial.NAME: partial}
 
 __all__ = ["SAMPLED", "ModelInputs", "Standardisation", "normal", "student_t", "to_data_units"]

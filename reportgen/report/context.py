@@ -9,7 +9,6 @@ from __future__ import annotations
 import datetime as dt
 import hashlib
 import json
-from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -18,6 +17,8 @@ from reportgen import figures, interpret, narrative
 from reportgen.data import PairData
 from reportgen.report.changes import long_date, since_previous_context
 from reportgen.report.checks import checks_context, highlighted_rows, run_checks_context
+from reportgen.report.groups import adjustment_context, groups_context, page_one_notes
+from reportgen.report.render import drawn_figure as _drawn
 from reportgen.report.render import logo_data_uri, svg_data_uri
 from reportgen.results import PairResult, RunResults, decisions
 from reportgen.spec import Spec
@@ -46,19 +47,6 @@ def parameter_title(name: str, model: str) -> tuple[str, str]:
 
 def _unit_suffix(unit: str) -> str:
     return f" ({unit})" if unit else ""
-
-
-def _drawn(draw: Callable[[], str], what: str, notes: list[str], *, width: float, height: float) -> str:
-    """The figure *draw* makes, as a data URI; a placeholder of its size (and a note) when it cannot be drawn.
-
-    Only the figures' own error is caught: anything else is a bug, and must not be hidden.
-    """
-    try:
-        return svg_data_uri(draw())
-    except figures.FigureError as exc:
-        reason = f"{what} could not be drawn: {exc}"
-        notes.append(reason)
-        return svg_data_uri(figures.unavailable_figure(reason, width=width, height=height))
 
 
 def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, Any]:
@@ -149,7 +137,7 @@ def _rho(value: float) -> str:
     return interpret.format_rho(value)
 
 
-def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[str, Any]:
+def pair_context(result: PairResult, figs: dict[str, str], mass: float, spec: Spec | None = None) -> dict[str, Any]:
     rows = []
     diagnostics = {p.name: p for p in result.diagnosis.parameters}
     for name, summary in result.parameters.items():
@@ -223,6 +211,9 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float) -> dict[
         "figures": figs,
         "model": result.model,
         "checks": checks_context(result),
+        "groups": groups_context(result, spec.display_name(result.groups.column) if spec and result.groups
+                                 else "group", mass),
+        "adjustment": adjustment_context(result),
     }
 
 
@@ -374,7 +365,7 @@ def build_context(
     pairs = []
     for result in results.pairs:
         figs = pair_figures(result, pair_data[result.key], spec)
-        pairs.append(pair_context(result, figs, mass))
+        pairs.append(pair_context(result, figs, mass, spec))
     thresholds = sorted({t for rule in document.rules for t in rule.thresholds})
     forest = figures.forest_plot(
         [p.title for p in results.pairs],
@@ -429,6 +420,7 @@ def build_context(
             "model": p["checks"]["model_short"],
         } for p in pairs],
         "model_warnings": run_checks_context(results, _anchor),
+        "grouped": page_one_notes(results.pairs, _anchor),
         "prior_sensitive": [p.title for p in results.pairs if p.sensitivity and p.sensitivity.prior_sensitive],
         "borderline": [{"anchor": p["anchor"], "title": result.title, "rule": rule.name,
                         "probability": interpret.format_probability(rule.probability),

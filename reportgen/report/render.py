@@ -42,6 +42,7 @@ from jinja2 import (
 from jinja2.exceptions import SecurityError
 from jinja2.sandbox import ImmutableSandboxedEnvironment
 
+from reportgen import figures
 from reportgen.assets import font_files, shipped_templates
 from reportgen.errors import ReportAssetError
 from reportgen.spec import Spec
@@ -431,3 +432,16 @@ def render_pdf(html: str, report_date: str) -> tuple[bytes, tuple[str, ...]]:
         else:
             os.environ["SOURCE_DATE_EPOCH"] = saved
     return pdf, tuple(refused)
+
+
+def drawn_figure(draw: Callable[[], str], what: str, notes: list[str], *, width: float, height: float) -> str:
+    """The figure *draw* makes, as a data URI; a placeholder of its size (and a note) when it cannot be drawn.
+
+    Only the figures' own error is caught: anything else is a bug, and must not be hidden.
+    """
+    try:
+        return svg_data_uri(draw())
+    except figures.FigureError as exc:
+        reason = f"{what} could not be drawn: {exc}"
+        notes.append(reason)
+        return svg_data_uri(figures.unavailable_figure(reason, width=width, height=height))

@@ -17,10 +17,10 @@ from reportgen.crosscheck import CrossCheck, cross_check, exact_only_check
 from reportgen.data import ControlData, PairData
 from reportgen.diagnostics import NOT_SAMPLED, Diagnosis, diagnose
 from reportgen.fit import PairFit
-from reportgen.models.partial import exact_partial_posterior
+from reportgen.models.partial import exact_partial_posterior, reference_inputs
 from reportgen.results.pair import exact_posterior_of
 from reportgen.results.rho import RhoSummary, from_draws, from_exact
-from reportgen.spec import MeanPrior, Priors, Spec
+from reportgen.spec import Spec
 
 __all__ = ["Adjustment", "adjustment_result", "change_sentence"]
 
@@ -74,11 +74,6 @@ def change_sentence(simple: RhoSummary, partial: RhoSummary, controls: str) -> s
             "not measured stays in.")
 
 
-def _flat_means(priors: Priors) -> Priors:
-    """The pair's priors with flat means: the partial model's intercepts are always flat."""
-    return priors.model_copy(update={"means": MeanPrior(family="flat")})
-
-
 def adjustment_result(spec: Spec, data: PairData, fit: PairFit | None) -> Adjustment:
     """The partial correlation of one pair, beside the simple one over the same rows (the exact posterior of
     the normal model, so that the two differ only by the adjustment); ``fit`` is the sampler's fit of the
@@ -102,7 +97,7 @@ def adjustment_result(spec: Spec, data: PairData, fit: PairFit | None) -> Adjust
         rho_diagnostics = next(p for p in diagnosis.parameters if p.name == "rho")
         partial = from_draws(fit.draws["rho"], spec, rho_diagnostics.ess_bulk)
         check = cross_check(np.ravel(fit.draws["rho"]), rho_diagnostics.mcse_mean, rho_diagnostics.ess_bulk,
-                            adjustment.residual, _flat_means(data.pair.priors), document.rules, mass,
+                            *reference_inputs(adjustment, data.pair.priors), document.rules, mass,
                             {name: p for name, p, _ in partial.rules},
                             rule_mcses={name: e for name, _, e in partial.rules})
         if check.applies and not check.within_error:

@@ -130,9 +130,14 @@ def group_analysis(spec: Spec, groups: GroupData, model: str, rho_shapes: tuple[
     pooled_within = within_stats(tuple(g.stats for g in groups.groups))
     within = from_exact(exact_posterior_of(pooled_within, a, b), spec)
     pooling = mean = None
+    pooling_failure = ""
     if model == "partial" and len(groups.groups) >= 2:
-        pooling = partial_pooling([GroupInput(g.label, g.stats.n, g.stats.sample_r, g.stats.one_minus_abs_r)
-                                   for g in groups.groups], spec.document.summary.credible_mass)
+        try:
+            pooling = partial_pooling([GroupInput(g.label, g.stats.n, g.stats.sample_r, g.stats.one_minus_abs_r)
+                                       for g in groups.groups], spec.document.summary.credible_mass)
+        except ValueError as exc:  # groups too unlike for one grid (a correlation within 1e-10 of 1, say)
+            pooling_failure = f"The groups could not be partially pooled ({exc}); each is shown alone."
+    if pooling is not None:
         fits = [GroupFit(label=fit.label, n=fit.n, sample_r=fit.sample_r, alone=fit.alone,
                          pooled=from_grid(shrunk.grid, shrunk.density, spec))
                 for fit, shrunk in zip(fits, pooling.groups, strict=True)]
@@ -179,4 +184,4 @@ def group_analysis(spec: Spec, groups: GroupData, model: str, rho_shapes: tuple[
         comparisons=tuple(comparisons), comparisons_note=note if not comparisons else "",
         simpson=simpson, simpson_sentence=simpson_sentence, summary_sentence=summary_sentence.strip(),
         left_out_sentence=left_out_sentence.strip(),
-        spread_sentence=spread_sentence(pooling, noun) if pooling is not None else "")
+        spread_sentence=spread_sentence(pooling, noun) if pooling is not None else pooling_failure)
