@@ -17,7 +17,7 @@ from reportgen import figures, interpret, narrative
 from reportgen.data import PairData
 from reportgen.report.changes import long_date, since_previous_context
 from reportgen.report.checks import checks_context, highlighted_rows, run_checks_context
-from reportgen.report.groups import adjustment_context, groups_context, page_one_notes
+from reportgen.report.groups import adjustment_context, groups_context, page_one_notes, summary_row_note
 from reportgen.report.render import drawn_figure as _drawn
 from reportgen.report.render import logo_data_uri, svg_data_uri
 from reportgen.results import PairResult, RunResults, decisions
@@ -418,7 +418,9 @@ def build_context(
             # the value above its kind (BF10 or BF01), so that a narrow column holds both
             "bf_kind": p["bf_parts"][0], "bf_value": p["bf_parts"][1],
             "model": p["checks"]["model_short"],
-        } for p in pairs],
+            "grouped": summary_row_note(result, spec.display_name(result.groups.column) if result.groups else ""),
+            "simpson": bool(result.groups and result.groups.simpson),
+        } for result, p in zip(results.pairs, pairs, strict=True)],
         "model_warnings": run_checks_context(results, _anchor),
         "grouped": page_one_notes(results.pairs, _anchor),
         "prior_sensitive": [p.title for p in results.pairs if p.sensitivity and p.sensitivity.prior_sensitive],

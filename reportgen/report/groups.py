@@ -14,7 +14,7 @@ from reportgen.results.adjustment import Adjustment
 from reportgen.results.groups import GroupAnalysis
 from reportgen.results.rho import RhoSummary
 
-__all__ = ["adjustment_context", "groups_context", "page_one_notes"]
+__all__ = ["adjustment_context", "groups_context", "page_one_notes", "summary_row_note"]
 
 
 def _interval(summary: RhoSummary) -> str:
@@ -129,3 +129,19 @@ def page_one_notes(results: tuple[PairResult, ...], anchor: Any) -> dict[str, li
     adjusted = [{"anchor": anchor(r.key), "title": r.title, "sentence": r.adjustment.sentence}
                 for r in results if r.adjustment is not None]
     return {"simpson": simpson, "adjusted": adjusted}
+
+
+def summary_row_note(result: PairResult, noun: str) -> str:
+    """The summary table's line under a grouped or adjusted pair: what else its page shows."""
+    parts = []
+    if result.groups is not None:
+        groups = result.groups
+        what = "Simpson's warning: the groups pull the other way" if groups.simpson else (
+            f"within-group median {interpret.format_rho(groups.within.median)}")
+        parts.append(f"by {noun.lower()}, {len(groups.groups)} groups; {what}")
+    if result.adjustment is not None:
+        adjustment = result.adjustment
+        parts.append(f"given {', '.join(adjustment.control_labels)}: median "
+                     f"{interpret.format_rho(adjustment.partial.median)} "
+                     f"({_interval(adjustment.partial)})")
+    return "; ".join(parts)

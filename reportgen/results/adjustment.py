@@ -58,7 +58,7 @@ def _listing(labels: tuple[str, ...]) -> str:
 def change_sentence(simple: RhoSummary, partial: RhoSummary, controls: str) -> str:
     """What allowing for the controls did to the correlation, in one or two sentences."""
     before, after = simple.median, partial.median
-    moved = f"from {before:+.2f} to {after:+.2f} (medians)"
+    moved = f"from {interpret.format_rho(before)} to {interpret.format_rho(after)} (medians)"
     if simple.excludes_zero and not partial.excludes_zero:
         verdict = (f"Allowing for {controls}, the correlation goes {moved} and is no longer clearly different from "
                    f"zero: most of the raw association runs through {controls}.")

@@ -98,11 +98,16 @@ def _compared_labels(spec: Spec, labels: tuple[str, ...]) -> tuple[tuple[str, ..
                 "shown; list the groups to compare in [compare] groups.")
 
 
+def _signed(value: float) -> str:
+    """A difference with its sign, written with a true minus sign as the report's tables are."""
+    return f"{value:+.2f}".replace("-", "\u2212")
+
+
 def _comparison_sentence(first: str, second: str, difference: RhoDifference) -> str:
     return (f"\u03c1 is higher in {second} than in {first} with probability {difference.p_rose:.2f}; the two "
             f"differ by more than {difference.margin:g} with probability {difference.p_moved:.2f} (difference "
-            f"{difference.median:+.2f}, {difference.credible_mass:.0%} interval {difference.lower:+.2f} to "
-            f"{difference.upper:+.2f}).")
+            f"{_signed(difference.median)}, {difference.credible_mass:.0%} interval {_signed(difference.lower)} to "
+            f"{_signed(difference.upper)}).")
 
 
 def _simpson(pooled_p_positive: float, reference: RhoSummary) -> bool:
@@ -120,6 +125,7 @@ def group_analysis(spec: Spec, groups: GroupData, model: str, rho_shapes: tuple[
     """Every grouped number of one pair; ``rho_shapes`` is the pair's prior on rho, ``pooled_*`` describe the
     pair's fit to all rows together and ``noun`` names the grouping column in sentences."""
     a, b = rho_shapes
+    noun = noun.lower()
     fits = []
     posteriors = {}
     for group in groups.groups:
@@ -161,9 +167,9 @@ def group_analysis(spec: Spec, groups: GroupData, model: str, rho_shapes: tuple[
     if simpson:
         simpson_sentence = (
             f"Simpson's paradox: over all rows together the correlation is {_direction(pooled_p_positive)} "
-            f"(median {pooled_median:+.2f}), but {what} is {_direction(reference.p_positive)} (median "
-            f"{reference.median:+.2f}), each with probability at least {SIMPSON_PROBABILITY:.2f}. The pooled "
-            f"number mixes differences between the {noun} values with the relation inside each; read the "
+            f"(median {_signed(pooled_median)}), but {what} is {_direction(reference.p_positive)} (median "
+            f"{_signed(reference.median)}), each with probability at least {SIMPSON_PROBABILITY:.2f}. The pooled "
+            f"number mixes differences between the groups (by {noun}) with the relation inside each; read the "
             "grouped result, and ask which of the two the decision needs.")
     left_out_sentence = ""
     if groups.left_out:
@@ -175,13 +181,14 @@ def group_analysis(spec: Spec, groups: GroupData, model: str, rho_shapes: tuple[
                               "fits.")
     shown = np.array([f.alone.median for f in fits])
     summary_sentence = (
-        f"Within the {len(fits)} {noun} groups the correlation ranges from {shown.min():+.2f} to {shown.max():+.2f} "
+        f"Within the {len(fits)} groups by {noun} the correlation ranges from {_signed(shown.min())} to "
+        f"{_signed(shown.max())} "
         f"(medians, each group alone); one correlation shared by all groups, each with its own means and SDs, "
-        f"has median {within.median:+.2f} ({within.lower:+.2f} to {within.upper:+.2f}).")
+        f"has median {_signed(within.median)} ({_signed(within.lower)} to {_signed(within.upper)}).")
     return GroupAnalysis(
         column=groups.column, model=model, groups=tuple(fits), left_out=groups.left_out,
         n_unlabelled=groups.n_unlabelled, within=within, within_n=pooled_within.n, pooling=pooling, mean=mean,
         comparisons=tuple(comparisons), comparisons_note=note if not comparisons else "",
         simpson=simpson, simpson_sentence=simpson_sentence, summary_sentence=summary_sentence.strip(),
         left_out_sentence=left_out_sentence.strip(),
-        spread_sentence=spread_sentence(pooling, noun) if pooling is not None else pooling_failure)
+        spread_sentence=spread_sentence(pooling, "groups") if pooling is not None else pooling_failure)
