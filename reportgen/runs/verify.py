@@ -265,11 +265,21 @@ def upgraded_row(row: dict[str, str]) -> dict[str, str]:
     return row
 
 
+def row_key(row: dict[str, str]) -> str:
+    """A results.csv row's identity: the pair's key for its own row; with the group or the controls for a
+    grouped pair's group rows and a partial correlation's row, which share the pair's key."""
+    if row.get("group"):
+        return f"{row['pair']} [group {row['group']}]"
+    if row.get("controls"):
+        return f"{row['pair']} [given {row['controls']}]"
+    return row["pair"]
+
+
 def _read_results(path: Path) -> dict[str, dict[str, str]]:
     if not path.is_file():
         return {}
     with path.open(encoding="utf-8", newline="") as handle:
-        return {row["pair"]: upgraded_row(row) for row in csv.DictReader(handle)}
+        return {row_key(row): upgraded_row(row) for row in csv.DictReader(handle)}
 
 
 def _number(text: str) -> float | None:
@@ -349,17 +359,21 @@ def compare_pairs(original: dict[str, Any], rerun: dict[str, Any], old_rows: dic
     mass = float(summary.get("credible_mass", 0.95))
     agreements, differences = [], []
     for key in dict.fromkeys([*old_pairs, *new_pairs, *old_rows, *new_rows]):
-        entry, row, new_row = old_pairs.get(key, {}), old_rows.get(key), new_rows.get(key)
+        row, new_row = old_rows.get(key), new_rows.get(key)
+        # a group's or a partial correlation's row is judged with its pair's record (seed, engine, ESS)
+        base = (row or new_row or {}).get("pair", key)
+        entry = old_pairs.get(base, {})
         found: list[Difference] = []
-        if row is None or new_row is None or key not in old_pairs or key not in new_pairs:
+        if row is None or new_row is None or base not in old_pairs or base not in new_pairs:
             shown = ("in the original" if row is not None else "absent", "in the rerun" if new_row else "absent")
             found.append(Difference(key, "(pair)", *shown, "text", False))
         else:
             for column in dict.fromkeys([*row, *new_row]):
                 judged = judge_value(key, column, row.get(column, ""), new_row.get(column, ""), entry, row, mass)
                 found += [judged] if judged is not None else []
-            old_rules = {r["name"]: r["verdict"] for r in entry.get("rules", [])}
-            new_rules = {r["name"]: r["verdict"] for r in new_pairs[key].get("rules", [])}
+            own_row = base == key
+            old_rules = {r["name"]: r["verdict"] for r in entry.get("rules", [])} if own_row else {}
+            new_rules = {r["name"]: r["verdict"] for r in new_pairs[key].get("rules", [])} if own_row else {}
             for name in dict.fromkeys([*old_rules, *new_rules]):
                 if old_rules.get(name) != new_rules.get(name):
                     found.append(Difference(key, f"rule {name} verdict", str(old_rules.get(name)),
