@@ -202,3 +202,19 @@ def test_bad_grouping_data_is_refused(tmp_path, body: str, words: str) -> None: 
     spec = load_spec(spec_file(tmp_path, body))
     with pytest.raises(DataError, match=words):
         load_pairs(spec, load_table(spec))
+
+
+def test_the_report_leads_with_the_warning_and_shows_the_groups(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    import reportgen
+
+    paradox_frame().to_csv(tmp_path / "data.csv", index=False)
+    spec = spec_file(tmp_path, GROUPED.replace('group_by = "site"', 'group_by = "site"\ngroups = "partial"'))
+    table = reportgen.run(spec, tmp_path / "out", engine="exact")
+    html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    # page one (before the summary section) carries the warning; the pair's page leads with the groups
+    assert html.index("Groups pull the other way") < html.index('id="summary"')
+    pair_page = html[html.index('<section class="pair'):]
+    assert pair_page.index("Site by site") < pair_page.index("All rows together")
+    assert "Forest plot of the correlation in each group" in pair_page
+    assert "tiny (only 3 complete rows" in pair_page  # the left-out group is listed, with its reason
+    assert list(table["group"].fillna("")) == ["", "S1", "S2", "S3", "S4", "S5"]

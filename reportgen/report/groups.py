@@ -38,6 +38,7 @@ def groups_context(result: PairResult, noun: str, mass: float) -> dict[str, Any]
             for fit in groups.groups]
     return {
         "noun": noun,
+        "noun_title": noun[:1].upper() + noun[1:],  # only the first letter: a label's own capitals stay
         "pooled": pooled,
         "simpson": groups.simpson,
         "simpson_sentence": groups.simpson_sentence,

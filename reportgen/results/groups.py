@@ -31,7 +31,9 @@ from reportgen.spec import Spec
 __all__ = ["GroupAnalysis", "GroupComparison", "GroupFit", "group_analysis"]
 
 SIMPSON_PROBABILITY = 0.95
-MAX_AUTOMATIC_COMPARISONS = 5  # up to this many groups, every two are compared unless [compare] groups says
+MAX_AUTOMATIC_COMPARISONS = 5
+# a gap between the pooled and the within-group medians larger than this is said in words
+MATERIAL_GAP = 0.1  # up to this many groups, every two are compared unless [compare] groups says
 
 
 @dataclass(frozen=True)
@@ -185,6 +187,12 @@ def group_analysis(spec: Spec, groups: GroupData, model: str, rho_shapes: tuple[
         f"{_signed(shown.max())} "
         f"(medians, each group alone); one correlation shared by all groups, each with its own means and SDs, "
         f"has median {_signed(within.median)} ({_signed(within.lower)} to {_signed(within.upper)}).")
+    if not simpson and abs(pooled_median - within.median) > MATERIAL_GAP:
+        stronger = abs(pooled_median) > abs(within.median)
+        summary_sentence += (
+            f" Over all rows together the correlation is {'stronger' if stronger else 'weaker'} (median "
+            f"{_signed(pooled_median)}): {'part of it comes from' if stronger else 'it is diluted by'} differences "
+            "between the groups rather than from the relation inside each.")
     return GroupAnalysis(
         column=groups.column, model=model, groups=tuple(fits), left_out=groups.left_out,
         n_unlabelled=groups.n_unlabelled, within=within, within_n=pooled_within.n, pooling=pooling, mean=mean,
