@@ -229,6 +229,8 @@ def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
                else "they are equal-tailed, cutting off equal probability in each tail.")
         ),
         "n_pairs": len(results.pairs),
+        "groups_paragraph": groups_paragraph(spec),
+        "adjustment_paragraph": adjustment_paragraph(spec),
         "models": sorted({pair.model for pair in spec.pairs}),
         "checks": model_check_lines(spec),
         "engine": document.engine,
@@ -240,6 +242,46 @@ def methods_context(spec: Spec, results: RunResults) -> dict[str, Any]:
             "Probabilities are shares of the posterior draws, so values beyond 0.999 or below 0.001 are shown "
             "as such."),
     }
+
+
+def groups_paragraph(spec: Spec) -> str:
+    """How grouped pairs are fitted, for the methods section; empty when no pair is grouped."""
+    grouped = [pair for pair in spec.pairs if pair.group_by]
+    if not grouped:
+        return ""
+    text = ("Grouped pairs are also fitted within each group (each value of the grouping column with at least 4 "
+            "complete rows; smaller groups are listed and left out). Each group alone has the exact posterior of "
+            "its correlation from its own sums. The within-group correlation is one correlation shared by all "
+            "groups, each with its own means and SDs: the exact posterior from the pooled within-group sums, with "
+            "one row less per group beyond the first, as in the analysis of covariance. Two groups are compared "
+            "through the posterior of the difference of their correlations, by numerical convolution of their "
+            "independent posteriors. Simpson's warning is given when the correlation over all rows and the "
+            "within-group one (or the partially pooled mean) have opposite signs, each with probability at least "
+            "0.95 (Simpson 1951).")
+    if any(pair.groups == "partial" for pair in grouped):
+        text += (" Partially pooled pairs treat the groups' correlations on Fisher's z scale as draws from one "
+                 "normal distribution with mean \u03bc ~ Normal(0, 1) and spread \u03c4 ~ Half-normal(0.5), "
+                 "estimated with them from each group's Jeffreys likelihood of \u03c1, by quadrature on a grid "
+                 "(a hierarchical model; Gelman et al., Bayesian Data Analysis, ch. 5). A spread below 0.1 on the z "
+                 "scale with 90% probability reads \u201cthe groups differ little\u201d, above it "
+                 "\u201cdiffer clearly\u201d.")
+    return text
+
+
+def adjustment_paragraph(spec: Spec) -> str:
+    """How partial correlations are computed, for the methods section; empty when no pair has controls."""
+    if not any(pair.controls for pair in spec.pairs):
+        return ""
+    engine = ("with the exact engine it is used directly" if spec.document.engine == "exact" else
+              "the sampler fits the model (flat priors on the intercepts and slopes, the spec's priors on the SDs "
+              "and on \u03c1) and is checked against that exact posterior under the same priors")
+    return ("A partial correlation is the correlation of x and y once each is regressed on the control columns: "
+            "x and y given the controls are bivariate normal around a straight-line function of them, and the "
+            "model is written from the (k + 2) \u00d7 (k + 2) sums of squares and products, so its cost does not "
+            "grow with the rows. With flat priors on the intercepts and the k slopes and 1/\u03c3 priors on the "
+            "SDs, the posterior of the partial correlation is Jeffreys' exact posterior of a simple correlation "
+            "with n \u2212 k rows (the Bayesian counterpart of Fisher's 1924 result for its sampling distribution); "
+            f"{engine}.")
 
 
 def model_check_lines(spec: Spec) -> list[tuple[str, str]]:

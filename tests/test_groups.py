@@ -218,3 +218,4 @@ def test_the_report_leads_with_the_warning_and_shows_the_groups(tmp_path) -> Non
     assert "Forest plot of the correlation in each group" in pair_page
     assert "tiny (only 3 complete rows" in pair_page  # the left-out group is listed, with its reason
     assert list(table["group"].fillna("")) == ["", "S1", "S2", "S3", "S4", "S5"]
+    assert "Partially pooled pairs treat" in html  # the methods section names the hierarchical model
