@@ -33,6 +33,7 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_fit.py
 	$(BIN)/python benchmarks/bench_pairs.py
 	$(BIN)/python benchmarks/bench_student_t.py
+	$(BIN)/python benchmarks/bench_groups.py
 
 sbc: $(STAMP)
 	$(BIN)/python benchmarks/sbc.py
