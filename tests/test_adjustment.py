@@ -95,3 +95,11 @@ def _summary(median: float, lower: float, upper: float) -> RhoSummary:
 def test_the_change_is_put_in_words(simple, partial, words: str) -> None:  # type: ignore[no-untyped-def]
     sentence = change_sentence(_summary(*simple), _summary(*partial), "temperature")
     assert words in sentence and "temperature" in sentence
+
+
+def test_a_failed_partial_fit_falls_back_to_exact_and_marks_the_pair(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    spec, pair, _ = _result(tmp_path)
+    result = pair_outcome(spec, pair, {}, {"partial": "the sampler stopped"})
+    assert result.adjustment.engine == "exact" and result.adjustment.status == "fail"
+    assert result.status == "warn"
+    assert any("partial correlation" in reason for reason in result.diagnosis.reasons)

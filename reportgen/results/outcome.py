@@ -149,5 +149,10 @@ def pair_outcome(spec: Spec, data: PairData, fits: dict[str, PairFit], failures:
             adjustment = dataclasses.replace(adjustment, diagnosis=dataclasses.replace(
                 adjustment.diagnosis, status="fail", reasons=(f"the sampler failed ({failures['partial']}); the "
                                                               "partial correlation shown is the exact engine's",)))
+        if adjustment.status != "pass":  # the pair's own status must show it: a scheduled run is loud about it
+            leading = dataclasses.replace(leading, diagnosis=dataclasses.replace(
+                leading.diagnosis, status="warn" if leading.diagnosis.status == "pass" else leading.diagnosis.status,
+                reasons=(*leading.diagnosis.reasons, "the partial correlation's fit did not pass its checks ("
+                         + "; ".join(adjustment.diagnosis.reasons) + ")")))
     return dataclasses.replace(leading, checks=checks, sensitivity=sensitivity, choice=choice, groups=groups,
                                adjustment=adjustment)
