@@ -18,8 +18,7 @@ from reportgen.data import ControlData, PairData
 from reportgen.diagnostics import NOT_SAMPLED, Diagnosis, diagnose
 from reportgen.fit import PairFit
 from reportgen.models.partial import exact_partial_posterior, reference_inputs
-from reportgen.results.pair import exact_posterior_of
-from reportgen.results.rho import RhoSummary, from_draws, from_exact
+from reportgen.results.rho import RhoSummary, exact_posterior_of, from_draws, from_exact
 from reportgen.spec import Spec
 
 __all__ = ["Adjustment", "adjustment_result", "change_sentence"]

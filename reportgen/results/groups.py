@@ -24,8 +24,7 @@ from reportgen.data import GroupData, SufficientStats
 from reportgen.data.groups import LeftOutGroup
 from reportgen.difference import RhoDifference, posterior_from_stats, rho_difference
 from reportgen.models.hierarchical import GroupInput, PartialPooling, partial_pooling, spread_sentence
-from reportgen.results.pair import exact_posterior_of
-from reportgen.results.rho import RhoSummary, from_exact, from_grid
+from reportgen.results.rho import RhoSummary, exact_posterior_of, from_exact, from_grid
 from reportgen.spec import Spec
 
 __all__ = ["GroupAnalysis", "GroupComparison", "GroupFit", "group_analysis"]

@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import time
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 
@@ -13,16 +13,15 @@ from reportgen import exact, interpret, summaries
 from reportgen.checks.sensitivity import Sensitivity
 from reportgen.checks.summary import ModelChecks
 from reportgen.crosscheck import CrossCheck, cross_check, exact_only_check, exact_rule_probability
-from reportgen.data import PairData, SufficientStats
+from reportgen.data import PairData
 from reportgen.diagnostics import NOT_SAMPLED, STATUS_ORDER, Diagnosis, diagnose
 from reportgen.fit import PairFit, derive_seed
 from reportgen.models.rank import rank_posterior
 from reportgen.results import decisions
+from reportgen.results.adjustment import Adjustment
+from reportgen.results.groups import GroupAnalysis
+from reportgen.results.rho import exact_posterior_of
 from reportgen.spec import Spec
-
-if TYPE_CHECKING:
-    from reportgen.results.adjustment import Adjustment
-    from reportgen.results.groups import GroupAnalysis
 
 # what results and the record keep of a pair's sums; rss (the residual sum of squares) carries 1 - |r|
 SUFFICIENT_KEYS = ("n", "mean_x", "mean_y", "sxx", "syy", "sxy", "rss")
@@ -257,11 +256,6 @@ def pair_result(spec: Spec, data: PairData, fit: PairFit) -> PairResult:
         mean_vector=(float(np.mean(fit.draws["mu_x"])), float(np.mean(fit.draws["mu_y"]))),
         model=fit.model, attempts=tuple((a.target_accept, a.divergences) for a in fit.attempts),
     )
-
-
-def exact_posterior_of(stats: SufficientStats, a: float, b: float) -> exact.ExactPosterior:
-    """The exact posterior of rho from a pair's sums, with 1 - |r| taken without cancellation."""
-    return exact.exact_posterior(stats.n, stats.sample_r, a, b, one_minus_abs_r=stats.one_minus_abs_r)
 
 
 def no_reference_check(rho_draws: np.ndarray, shapes: tuple[float, float], mass: float,

@@ -13,10 +13,16 @@ import numpy as np
 
 from reportgen import exact, summaries
 from reportgen.crosscheck import exact_rule_probability
+from reportgen.data import SufficientStats
 from reportgen.results import decisions
 from reportgen.spec import Rule, Spec
 
-__all__ = ["RhoSummary", "from_draws", "from_exact", "from_grid"]
+__all__ = ["RhoSummary", "exact_posterior_of", "from_draws", "from_exact", "from_grid"]
+
+
+def exact_posterior_of(stats: SufficientStats, a: float, b: float) -> exact.ExactPosterior:
+    """The exact posterior of rho from a pair's sums, with 1 - |r| taken without cancellation."""
+    return exact.exact_posterior(stats.n, stats.sample_r, a, b, one_minus_abs_r=stats.one_minus_abs_r)
 
 
 @dataclass(frozen=True)
