@@ -128,10 +128,10 @@ def group_analysis(spec: Spec, groups: GroupData, model: str, rho_shapes: tuple[
     a, b = rho_shapes
     noun = noun.lower()
     fits = []
-    posteriors = {}
+    sums = {}  # each group's sums, from which the comparisons take its posterior
     for group in groups.groups:
         posterior = exact_posterior_of(group.stats, a, b)
-        posteriors[group.label] = group.stats
+        sums[group.label] = group.stats
         fits.append(GroupFit(label=group.label, n=group.stats.n, sample_r=group.stats.sample_r,
                              alone=from_exact(posterior, spec), pooled=None))
     pooled_within = within_stats(tuple(g.stats for g in groups.groups))
@@ -156,8 +156,8 @@ def group_analysis(spec: Spec, groups: GroupData, model: str, rho_shapes: tuple[
     margin, mass = spec.document.compare.margin, spec.document.summary.credible_mass
     comparisons = []
     for first, second in itertools.combinations(labels, 2):
-        difference = rho_difference(posterior_from_stats(posteriors[first], a, b),
-                                    posterior_from_stats(posteriors[second], a, b), margin, mass,
+        difference = rho_difference(posterior_from_stats(sums[first], a, b),
+                                    posterior_from_stats(sums[second], a, b), margin, mass,
                                     names=(first, second))
         comparisons.append(GroupComparison(first, second, difference,
                                            _comparison_sentence(first, second, difference)))
