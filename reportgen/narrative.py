@@ -9,7 +9,9 @@ from typing import Any
 
 from reportgen import interpret
 from reportgen.crosscheck import MCSE_MULTIPLE
+from reportgen.models.hierarchical import MU_PRIOR_SD, SMALL_SPREAD, TAU_PRIOR_SCALE, WORDS_MASS
 from reportgen.results import RunResults
+from reportgen.results.groups import SIMPSON_PROBABILITY
 from reportgen.spec import MeanPrior, Priors, SdPrior, Spec
 
 # A prior on a mean or SD is called wide when its scale is at least WIDE_SCALE_MULTIPLE sample SDs and, for
@@ -257,13 +259,15 @@ def groups_paragraph(spec: Spec) -> str:
             "through the posterior of the difference of their correlations, by numerical convolution of their "
             "independent posteriors. Simpson's warning is given when the correlation over all rows and the "
             "within-group one (or the partially pooled mean) have opposite signs, each with probability at least "
-            "0.95 (Simpson 1951).")
+            f"{SIMPSON_PROBABILITY:g} (Simpson 1951).")
     if any(pair.groups == "partial" for pair in grouped):
         text += (" Partially pooled pairs treat the groups' correlations on Fisher's z scale as draws from one "
-                 "normal distribution with mean \u03bc ~ Normal(0, 1) and spread \u03c4 ~ Half-normal(0.5), "
+                 f"normal distribution with mean \u03bc ~ Normal(0, {MU_PRIOR_SD:g}) and spread \u03c4 ~ "
+                 f"Half-normal({TAU_PRIOR_SCALE:g}), "
                  "estimated with them from each group's Jeffreys likelihood of \u03c1, by quadrature on a grid "
-                 "(a hierarchical model; Gelman et al., Bayesian Data Analysis, ch. 5). A spread below 0.1 on the z "
-                 "scale with 90% probability reads \u201cthe groups differ little\u201d, above it "
+                 "(a hierarchical model; Gelman et al., Bayesian Data Analysis, ch. 5). A spread below "
+                 f"{SMALL_SPREAD:g} on the z scale with {WORDS_MASS:.0%} probability reads \u201cthe groups differ "
+                 "little\u201d, above it "
                  "\u201cdiffer clearly\u201d.")
     return text
 

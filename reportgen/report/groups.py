@@ -55,14 +55,30 @@ def groups_context(result: PairResult, noun: str, mass: float) -> dict[str, Any]
         "comparisons_note": groups.comparisons_note,
         "figure": _forest_figure(result, groups, notes, mass, noun),
         "figure_notes": notes,
-        "method": ("Each group alone: the exact posterior of its correlation from its own rows (Jeffreys' priors "
-                   "on the group's means and SDs, the pair's prior on \u03c1), by quadrature; no sampler runs for "
-                   "groups." + (" Partially pooled: the groups' correlations on Fisher's z scale are drawn from "
-                                "one normal distribution whose mean (prior normal, SD 1) and spread (prior "
-                                "half-normal, scale 0.5) are estimated with them, by quadrature on a grid; a "
-                                "small group's estimate is drawn towards the others as far as the data say the "
-                                "groups are alike." if pooled else "")),
+        "method": _method_sentence(groups),
     }
+
+
+def _method_sentence(groups: GroupAnalysis) -> str:
+    text = ("Each group alone: the exact posterior of its correlation from its own rows (Jeffreys' priors on the "
+            "group's means and SDs, the pair's prior on \u03c1), by quadrature; no sampler runs for groups.")
+    pooling = groups.pooling
+    if pooling is not None:
+        text += (" Partially pooled: the groups' correlations on Fisher's z scale are drawn from one normal "
+                 f"distribution whose mean (prior normal, SD {pooling.mu_prior_sd:g}) and spread (prior half-normal, "
+                 f"scale {pooling.tau_prior_scale:g}) are estimated with them, by quadrature on a grid; a small "
+                 "group's estimate is drawn towards the others as far as the data say the groups are alike.")
+    return text
+
+
+def _sampler_sentence(adjustment: Adjustment) -> str:
+    """The partial fit's sampler checks in one sentence, or why there were none."""
+    d = adjustment.diagnosis
+    if adjustment.engine != "mcmc":
+        return "; ".join(d.reasons) + "." if d.reasons else "No sampler was run: computed by quadrature."
+    verdict = "passed" if d.status == "pass" else "; ".join(d.reasons) or d.status
+    return (f"Sampler checks: {verdict} (R-hat up to {d.rhat_max:.3f}, bulk ESS at least {d.ess_bulk_min:,.0f}; "
+            f"seed {adjustment.seed}).")
 
 
 def _forest_figure(result: PairResult, groups: GroupAnalysis, notes: list[str], mass: float, noun: str) -> str:
@@ -100,8 +116,6 @@ def adjustment_context(result: PairResult) -> dict[str, Any] | None:
     if adjustment is None:
         return None
     names = ", ".join(adjustment.control_labels)
-    sampled = adjustment.engine == "mcmc"
-    d = adjustment.diagnosis
     return {
         "controls": names,
         "n": f"{adjustment.n:,}",
@@ -115,11 +129,8 @@ def adjustment_context(result: PairResult) -> dict[str, Any] | None:
         "sentence": adjustment.sentence,
         "method": adjustment.method_sentence,
         "reference": _reference_sentence(adjustment),
-        "status": d.status,
-        "diagnostics": ("Sampler checks: " + ("passed" if d.status == "pass" else "; ".join(d.reasons) or d.status)
-                        + f" (R-hat up to {d.rhat_max:.3f}, bulk ESS at least {d.ess_bulk_min:,.0f}; seed "
-                        f"{adjustment.seed})." if sampled else
-                        ("; ".join(d.reasons) + "." if d.reasons else "No sampler was run: computed by quadrature.")),
+        "status": adjustment.status,
+        "diagnostics": _sampler_sentence(adjustment),
     }
 
 
