@@ -72,6 +72,11 @@ def format_required(value: float) -> str:
     return f"{value:.6g}"
 
 
+def format_p_value(p: float) -> str:
+    """A frequentist p-value with four decimals, and very small ones as a bound."""
+    return "< 0.0001" if p < 1e-4 else f"{p:.4f}"
+
+
 def format_rho(value: float) -> str:
     """Two decimals with a true minus sign, as correlations are printed in the report."""
     text = f"{abs(value):.2f}"

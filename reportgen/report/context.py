@@ -183,7 +183,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float, spec: Sp
         "reference": {
             "r": f"{ref.r:.3f}".replace("-", "\u2212"),
             "interval": f"{_rho(ref.ci_lower)} to {_rho(ref.ci_upper)}",
-            "p_value": "< 0.0001" if ref.p_value < 1e-4 else f"{ref.p_value:.4f}",
+            "p_value": interpret.format_p_value(ref.p_value),
             "mass": f"{mass:.0%}",
         },
         "status": result.status,

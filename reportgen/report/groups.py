@@ -103,7 +103,7 @@ def _forest_figure(result: PairResult, groups: GroupAnalysis, notes: list[str], 
 
 def _reference_sentence(adjustment: Adjustment) -> str:
     reference = adjustment.reference
-    p_value = "< 0.0001" if reference.p_value < 1e-4 else f"{reference.p_value:.4f}"
+    p_value = interpret.format_p_value(reference.p_value)
     rows = adjustment.n - len(adjustment.controls)
     return (f"Frequentist reference: sample partial r = {interpret.format_rho(adjustment.partial_r)}; Fisher-z "
             f"interval {interpret.format_rho(reference.ci_lower)} to {interpret.format_rho(reference.ci_upper)} "
