@@ -26,7 +26,7 @@ from reportgen import runner
 from reportgen.data import Table, load_pairs
 from reportgen.errors import DataError, ReportgenError, SpecError
 from reportgen.fit import Fitter
-from reportgen.results import PairResult, RunResults, results_rows
+from reportgen.results import PairResult
 from reportgen.runs.publish import resolve_out
 from reportgen.runs.record import RunClock
 from reportgen.runs.signals import handling_signals
@@ -105,21 +105,7 @@ def _frame_spec(spec: Spec, frame: pd.DataFrame, folder: Path) -> tuple[Spec, Pa
                                    "overrides": (*spec.overrides, ("data", note))}), path
 
 
-def results_frame(results: RunResults) -> pd.DataFrame:
-    """results.csv's rows as a DataFrame: the same columns; numbers as floats (NaN where the file has an
-    empty cell), text as written, without the apostrophe that keeps a spreadsheet from reading formulas."""
-    header, rows = results_rows(results)
-    frame = pd.DataFrame(rows, columns=header, dtype=object)
-    for column in header:
-        cells = frame[column]
-        if column not in TEXT_COLUMNS:
-            try:
-                frame[column] = pd.to_numeric(cells.replace("", np.nan)).astype(float)
-                continue
-            except (TypeError, ValueError):  # a text column this list does not know yet stays text
-                pass
-        frame[column] = cells.astype(str)
-    return frame
+results_frame = runner.results_frame
 
 
 def run(

@@ -28,6 +28,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from reportgen import report
 from reportgen.data import PairData, Table, load_pairs, load_table
@@ -41,7 +42,8 @@ from reportgen.runs.snapshot import RunSnapshot, load_run
 from reportgen.spec import Spec, check_engine_models
 
 LOGGER = logging.getLogger(__name__)
-OUTPUT_FILES = ("report.html", "report.pdf", "results.csv", "record.json", publish.RUN_LOG, publish.SUMS)
+OUTPUT_FILES = ("report.html", "report.pdf", "results.csv", "results.parquet", "record.json", publish.RUN_LOG,
+                publish.SUMS)
 PREVIOUS_OUTPUTS = ("changes.csv",)  # written only by a run with --previous
 DRAWS_FOLDER = "draws"
 
@@ -294,6 +296,38 @@ def results_csv(results: RunResults) -> str:
     return buffer.getvalue()
 
 
+def results_frame(results: RunResults) -> pd.DataFrame:
+    """results.csv's rows as a DataFrame: the same columns; numbers as floats (NaN where the file has an
+    empty cell), text as written, without the apostrophe that keeps a spreadsheet from reading formulas."""
+    header, rows = results_rows(results)
+    frame = pd.DataFrame(rows, columns=header, dtype=object)
+    for column in header:
+        cells = frame[column]
+        if column not in TEXT_COLUMNS:
+            try:
+                frame[column] = pd.to_numeric(cells.replace("", np.nan)).astype(float)
+                continue
+            except (TypeError, ValueError):  # a text column this list does not know yet stays text
+                pass
+        frame[column] = cells.astype(str)
+    return frame
+
+
+def results_parquet(results: RunResults) -> bytes:
+    """results.csv's rows as Parquet: the same columns and rows, numbers as float64, text as written.
+
+    Written with fixed settings (no statistics timestamps exist in the format), so the same results give
+    the same bytes, which verify and SHA256SUMS rely on.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    buffer = io.BytesIO()
+    pq.write_table(pa.Table.from_pandas(results_frame(results), preserve_index=False), buffer,
+                   compression="zstd")
+    return buffer.getvalue()
+
+
 def table_csv(header: list[str], rows: list[list[object]]) -> str:
     """A table of our own as CSV, safe in a spreadsheet: every text cell that could start a formula gets
     a leading apostrophe; numbers are written by us and left as they are."""
@@ -400,7 +434,8 @@ def write_outputs(staging: Path, html: str, pdf: bytes, results: RunResults, rec
                   comparison: Comparison | None = None) -> None:
     """Write every output but the draws into ``staging``; record.json also gets the SHA-256 of the others."""
     csv_text = results_csv(results)
-    files = {"report.html": html.encode("utf-8"), "report.pdf": pdf, "results.csv": csv_text.encode("utf-8")}
+    files = {"report.html": html.encode("utf-8"), "report.pdf": pdf, "results.csv": csv_text.encode("utf-8"),
+             "results.parquet": results_parquet(results)}
     if comparison is not None:
         files["changes.csv"] = changes_csv(comparison).encode("utf-8")
     record["reproducible"]["outputs_sha256"] = {name: hashlib.sha256(data).hexdigest() for name, data in files.items()}

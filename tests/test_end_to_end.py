@@ -71,7 +71,7 @@ def finished_run(project: Path) -> Path:
 
 
 def test_all_outputs_are_written(finished_run: Path) -> None:
-    for name in ("report.html", "report.pdf", "results.csv", "record.json"):
+    for name in ("report.html", "report.pdf", "results.csv", "results.parquet", "record.json"):
         assert (finished_run / name).is_file()
     assert len(list((finished_run / "draws").glob("*.nc"))) == 5  # 2 explicit pairs + 3 from the set
 
@@ -92,6 +92,22 @@ def test_results_csv_columns_and_sample_r_match_scipy(project: Path, finished_ru
         assert int(row["n"]) == len(complete)
         assert int(row["n_dropped"]) == len(data) - len(complete)
         assert float(row["rho_lower"]) < float(row["rho_median"]) < float(row["rho_upper"])
+
+
+def test_results_parquet_holds_the_rows_of_results_csv(finished_run: Path) -> None:
+    """results.parquet, read by pyarrow through pandas, has results.csv's columns and rows: numbers equal to
+    pandas' own reading of the CSV, text as written (the CSV's leading apostrophe aside)."""
+    table = pd.read_parquet(finished_run / "results.parquet")
+    csv_table = pd.read_csv(finished_run / "results.csv", keep_default_na=False, dtype=str)
+    assert list(table.columns) == list(csv_table.columns)
+    assert len(table) == len(csv_table) == 5
+    for column in ("sample_r", "rho_median", "rho_lower", "rho_upper", "n"):
+        assert table[column].dtype == float
+        np.testing.assert_array_equal(table[column].to_numpy(), csv_table[column].astype(float).to_numpy())
+    assert list(table["pair"]) == [cell.removeprefix("'") for cell in csv_table["pair"]]
+    record = json.loads((finished_run / "record.json").read_text(encoding="utf-8"))
+    assert record["reproducible"]["outputs_sha256"]["results.parquet"] == hashlib.sha256(
+        (finished_run / "results.parquet").read_bytes()).hexdigest()
 
 
 def test_record_traces_the_inputs(project: Path, finished_run: Path) -> None:
@@ -127,6 +143,7 @@ def test_same_inputs_give_identical_report_bytes(project: Path, finished_run: Pa
     assert (again / "report.pdf").read_bytes() == (finished_run / "report.pdf").read_bytes()
     assert (again / "report.html").read_bytes() == (finished_run / "report.html").read_bytes()
     assert (again / "results.csv").read_bytes() == (finished_run / "results.csv").read_bytes()
+    assert (again / "results.parquet").read_bytes() == (finished_run / "results.parquet").read_bytes()
 
 
 def test_bad_spec_exits_2_with_one_line_and_touches_nothing(project: Path, finished_run: Path) -> None:
