@@ -30,6 +30,7 @@ sample-reports: $(STAMP)
 	rm -rf sample_reports/*/draws sample_reports/*/run.log sample_reports/*/SHA256SUMS
 
 bench: $(STAMP)
+	$(BIN)/python benchmarks/bench_compile.py
 	$(BIN)/python benchmarks/bench_fit.py
 	$(BIN)/python benchmarks/bench_pairs.py
 	$(BIN)/python benchmarks/bench_student_t.py
