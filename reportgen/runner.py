@@ -316,8 +316,8 @@ def results_frame(results: RunResults) -> pd.DataFrame:
 def results_parquet(results: RunResults) -> bytes:
     """results.csv's rows as Parquet: the same columns and rows, numbers as float64, text as written.
 
-    Written with fixed settings (no statistics timestamps exist in the format), so the same results give
-    the same bytes, which verify and SHA256SUMS rely on.
+    Written with fixed settings (Parquet stores no write time), so the same results give the same bytes, as
+    the record's hash of it expects.
     """
     import pyarrow as pa
     import pyarrow.parquet as pq
