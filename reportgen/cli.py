@@ -226,8 +226,8 @@ def _report_outcome(outcome: Any, spec: Any) -> None:
     draws = ", draws/" if any(p.engine == "mcmc" for p in results.pairs) else ""
     changes = ", changes.csv" if (outcome.out_dir / "changes.csv").is_file() else ""
     with _stdout_may_fail():
-        click.echo(f"wrote {outcome.out_dir}/report.html, report.pdf, results.csv, record.json, run.log, "
-                   f"SHA256SUMS{changes}{draws}")
+        click.echo(f"wrote {outcome.out_dir}/report.html, report.pdf, results.csv, results.parquet, "
+                   f"record.json, run.log, SHA256SUMS{changes}{draws}")
         for pair in results.pairs:
             click.echo(f"  {pair.status:4}  {pair.key}: median rho {pair.rho.median:+.3f} "
                        f"[{pair.rho.lower:+.3f}, {pair.rho.upper:+.3f}], n = {pair.n}")
