@@ -41,6 +41,15 @@ RETRY_TARGETS = (0.95, 0.99)
 MAX_RETRIES = 2
 
 
+def use_cache_folder(folder: os.PathLike[str] | str) -> None:
+    """Keep this process's compiled log-densities in ``folder`` (one per worker when workers share a disk).
+
+    Call it before the first fit: the compiled model is loaded from, or written to, the folder that is set
+    when it is first built.
+    """
+    os.environ["NUMBA_CACHE_DIR"] = os.fspath(folder)
+
+
 def derive_seed(master_seed: int, x: str, y: str, model: str = "normal") -> int:
     """A pair's seed from the master seed and the pair's identity alone.
 
