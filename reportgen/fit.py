@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+import sys
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -41,13 +42,22 @@ RETRY_TARGETS = (0.95, 0.99)
 MAX_RETRIES = 2
 
 
+def compiled_key(inputs: ModelInputs, model: str) -> str:
+    """Which compiled model serves ``inputs``: the normal model's one compiled density takes every prior
+    family as data; the PyMC-built models compile once per structure (model and prior families)."""
+    return normal_model.NAME if model == normal_model.NAME else inputs.structure
+
+
 def use_cache_folder(folder: os.PathLike[str] | str) -> None:
     """Keep this process's compiled log-densities in ``folder`` (one per worker when workers share a disk).
 
     Call it before the first fit: the compiled model is loaded from, or written to, the folder that is set
-    when it is first built.
+    when it is first built. Numba reads the variable when it is imported; a numba already imported is told
+    directly.
     """
     os.environ["NUMBA_CACHE_DIR"] = os.fspath(folder)
+    if "numba" in sys.modules:
+        sys.modules["numba"].config.CACHE_DIR = os.fspath(folder)
 
 
 def derive_seed(master_seed: int, x: str, y: str, model: str = "normal") -> int:
@@ -119,17 +129,24 @@ class Fitter:
         self.compile_seconds: dict[str, float] = {}
 
     def _compiled_for(self, inputs: ModelInputs, model: str) -> tuple[Any, float]:
-        if inputs.structure in _COMPILED:
-            return _COMPILED[inputs.structure], 0.0
-        import nutpie
-
+        key = compiled_key(inputs, model)
+        if key in _COMPILED:
+            return _COMPILED[key], 0.0
         started = time.perf_counter()
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", UserWarning)
-            compiled = nutpie.compile_pymc_model(SAMPLED[model].build_model(inputs))
+        if model == normal_model.NAME:
+            # written for numba and kept in its on-disk cache: compiled once per machine, loaded after that
+            from reportgen.models import normal_compiled
+
+            compiled = normal_compiled.compiled_model(inputs)
+        else:
+            import nutpie
+
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", UserWarning)
+                compiled = nutpie.compile_pymc_model(SAMPLED[model].build_model(inputs))
         seconds = time.perf_counter() - started
-        _COMPILED[inputs.structure] = compiled
-        self.compile_seconds[inputs.structure] = seconds
+        _COMPILED[key] = compiled
+        self.compile_seconds[key] = seconds
         return compiled, seconds
 
     def fit(self, pair: PairData, master_seed: int, model: str = "normal") -> PairFit:
@@ -141,7 +158,8 @@ class Fitter:
         compiled, compile_seconds = self._compiled_for(inputs, model)
         seed = derive_seed(master_seed, pair.pair.x, pair.pair.y, model)
         started = time.perf_counter()
-        with_data = compiled.with_data(**inputs.values)
+        with_data = (compiled.for_inputs(inputs) if model == normal_model.NAME
+                     else compiled.with_data(**inputs.values))
         retries = retry_targets(self.sampler.target_accept) if self.max_divergences is not None else ()
         attempts: list[SamplingAttempt] = []
         for target in (self.sampler.target_accept, *retries):

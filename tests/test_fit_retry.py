@@ -29,9 +29,9 @@ from reportgen.spec import Diagnostics, PairSpec, Priors, Sampler, load_spec
 SHORT = Sampler(draws=200, tune=200, chains=2, seed=1)
 MASTER_SEED = 1
 # data seeds whose n = 4 pair diverges at target acceptance 0.8 under MASTER_SEED (found by trying seeds
-# 0 to 5 on this platform); how many retries each needs depends on the last bits of the data's sums, so the
+# 0 to 29 on this platform); how many retries each needs depends on the last bits of the data's sums, so the
 # two-retry path is tested on its own below, with divergences forced
-CURED_AT_095, NEEDS_099 = 2, 4
+CURED_AT_095, NEEDS_099 = 3, 7
 
 
 def small_pair(seed: int, n: int = 4) -> PairData:

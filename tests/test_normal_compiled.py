@@ -1,0 +1,142 @@
+"""The normal model's hand-written numba density against PyMC's own compiled model, scipy and finite
+differences; and its on-disk cache, which a second process loads instead of compiling.
+
+The references outside this project: PyMC's ``compile_logp``/``compile_dlogp`` of the same model (its
+transforms and Jacobians are PyMC's), ``scipy.stats.multivariate_normal`` for the likelihood of the rows, and
+``scipy.optimize.approx_fprime`` for the gradient.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import optimize, stats
+
+from reportgen.data import sufficient_stats
+from reportgen.models import ModelInputs, normal, normal_compiled
+from reportgen.spec import Priors
+
+PRIOR_FAMILIES = [
+    {},
+    {"means": {"family": "flat"}},
+    {"sds": {"family": "half_student_t", "nu": 3, "scale": 2.0}},
+    {"sds": {"family": "jeffreys"}, "means": {"family": "flat"}},
+    {"means": {"location": 10.0, "scale": 3.0, "units": "data"}, "rho": {"family": "beta", "a": 3.0, "b": 2.0}},
+]
+
+
+def rows(n: int = 40, seed: int = 3) -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    x = rng.normal(10.0, 2.0, n)
+    y = 0.6 * (x - 10.0) + rng.normal(0.0, 1.5, n)
+    return x, y
+
+
+def inputs_for(prior: dict) -> ModelInputs:
+    x, y = rows()
+    return normal.model_inputs(sufficient_stats(x, y), Priors.model_validate(prior))
+
+
+def density(theta: np.ndarray, data: np.ndarray) -> tuple[float, np.ndarray]:
+    grad = np.zeros(normal_compiled.N_DIM)
+    return normal_compiled.log_density(theta, data, grad), grad
+
+
+def points(count: int = 6) -> list[np.ndarray]:
+    rng = np.random.default_rng(11)
+    return [rng.normal(0.0, 0.6, normal_compiled.N_DIM) for _ in range(count)]
+
+
+@pytest.mark.parametrize("prior", PRIOR_FAMILIES, ids=lambda p: "+".join(sorted(p)) or "defaults")
+def test_density_and_gradient_equal_pymcs_compiled_model(prior: dict) -> None:
+    """PyMC's model of the same structure, on the same unconstrained coordinates: the log densities differ by
+    one constant (normalising terms PyMC keeps), and the gradients agree to rounding."""
+    inputs = inputs_for(prior)
+    model = normal.build_model(inputs)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        logp, dlogp = model.compile_logp(), model.compile_dlogp()
+    names = [v.name for v in model.value_vars]
+    data = normal_compiled.pack(inputs)
+    offsets = []
+    for theta in points():
+        point = {names[0]: theta[0:2], names[1]: theta[2:4], names[2]: theta[4]}
+        ours, grad = density(theta, data)
+        offsets.append(ours - float(logp(point)))
+        np.testing.assert_allclose(grad, dlogp(point), rtol=1e-9, atol=1e-9)
+    assert np.ptp(offsets) < 1e-9
+
+
+def test_likelihood_equals_scipys_bivariate_normal_of_the_rows() -> None:
+    """Flat means, Jeffreys' SDs (flat on log sigma) and a uniform rho: what is left beside the likelihood is
+    the log-odds Jacobian of rho's position, log u + log(1 - u); the rest is scipy's log density of the
+    standardised rows, up to one constant."""
+    x, y = rows()
+    inputs = inputs_for({"sds": {"family": "jeffreys"}, "means": {"family": "flat"}})
+    data = normal_compiled.pack(inputs)
+    zx, zy = (x - x.mean()) / x.std(ddof=1), (y - y.mean()) / y.std(ddof=1)
+    gaps = []
+    for theta in points():
+        sx, sy = np.exp(theta[2:4])
+        u = 1.0 / (1.0 + np.exp(-theta[4]))
+        rho = 2.0 * u - 1.0
+        cov = [[sx * sx, rho * sx * sy], [rho * sx * sy, sy * sy]]
+        reference = stats.multivariate_normal(theta[0:2], cov).logpdf(np.column_stack([zx, zy])).sum()
+        ours, _ = density(theta, data)
+        gaps.append(ours - np.log(u) - np.log1p(-u) - reference)
+    assert np.ptp(gaps) < 1e-8
+
+
+@pytest.mark.parametrize("prior", PRIOR_FAMILIES[:4], ids=["defaults", "flat", "student_t", "jeffreys"])
+def test_gradient_matches_finite_differences(prior: dict) -> None:
+    data = normal_compiled.pack(inputs_for(prior))
+    for theta in points(3):
+        _, grad = density(theta, data)
+        numeric = optimize.approx_fprime(theta, lambda t: density(t, data)[0], 1e-7)
+        np.testing.assert_allclose(grad, numeric, rtol=1e-4, atol=1e-4)
+
+
+def test_density_stays_finite_near_rho_of_one() -> None:
+    """rho_unit's log-odds of +-30 (rho within 1e-13 of +-1): D = 1 - rho^2 is formed from log u and
+    log(1 - u), so the density is a finite number, very low, with a gradient pointing back inward."""
+    data = normal_compiled.pack(inputs_for({}))
+    for t, inward in ((30.0, -1.0), (-30.0, 1.0)):
+        value, grad = density(np.array([0.0, 0.0, 0.0, 0.0, t]), data)
+        assert np.isfinite(value) and np.isfinite(grad).all()
+        assert np.sign(grad[4]) == inward
+
+
+def test_expand_gives_the_constrained_values() -> None:
+    out = np.zeros(normal_compiled.N_EXPANDED)
+    normal_compiled.expand(np.array([0.1, -0.2, np.log(2.0), np.log(0.5), np.log(3.0)]), out)
+    # rho = 2 u - 1 with u = 3 / 4 (log-odds log 3)
+    np.testing.assert_allclose(out, [0.1, -0.2, 2.0, 0.5, 0.5])
+
+
+CACHE_PROBE = """
+import json
+from reportgen.models import normal_compiled as m
+print(json.dumps({"hits": m._logp_callback.cache_hits + m._expand_callback.cache_hits}))
+"""
+
+
+def test_a_second_process_loads_the_compiled_density_from_the_cache(tmp_path: Path) -> None:
+    """The first process in an empty cache folder compiles the callbacks and writes them; the next one loads
+    both from the folder (numba's own count of cache hits) instead of compiling them again."""
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
+
+    def hits() -> int:
+        done = subprocess.run([sys.executable, "-c", CACHE_PROBE], env=env, capture_output=True, text=True,
+                              check=True)
+        return json.loads(done.stdout.strip().splitlines()[-1])["hits"]
+
+    assert hits() == 0
+    assert any((tmp_path / "cache").rglob("*.nbi"))
+    assert hits() == 2
