@@ -29,6 +29,9 @@ from reportgen.models import normal as normal_model
 from reportgen.spec import Sampler
 
 PARAMETERS = normal_model.PARAMETERS
+# the models whose density and gradient are written by hand for numba (models/compiled.py), so their
+# compiled code is kept on disk across processes; the partial model is still built through PyMC
+HAND_WRITTEN = frozenset({"normal", "student_t"})
 
 # Compiled models live for the whole process: every Fitter (every spec run in this
 # process) reuses them. Keyed by model structure; the data are swapped per pair.
@@ -43,9 +46,9 @@ MAX_RETRIES = 2
 
 
 def compiled_key(inputs: ModelInputs, model: str) -> str:
-    """Which compiled model serves ``inputs``: the normal model's one compiled density takes every prior
-    family as data; the PyMC-built models compile once per structure (model and prior families)."""
-    return normal_model.NAME if model == normal_model.NAME else inputs.structure
+    """Which compiled model serves ``inputs``: a hand-written density takes every prior family as data; a
+    model built through PyMC compiles once per structure (model and prior families)."""
+    return model if model in HAND_WRITTEN else inputs.structure
 
 
 def use_cache_folder(folder: os.PathLike[str] | str) -> None:
@@ -133,11 +136,11 @@ class Fitter:
         if key in _COMPILED:
             return _COMPILED[key], 0.0
         started = time.perf_counter()
-        if model == normal_model.NAME:
+        if model in HAND_WRITTEN:
             # written for numba and kept in its on-disk cache: compiled once per machine, loaded after that
-            from reportgen.models import normal_compiled
+            from reportgen.models import compiled as hand_written
 
-            compiled = normal_compiled.compiled_model(inputs)
+            compiled = hand_written.compiled_model(model, inputs)
         else:
             import nutpie
 
@@ -158,7 +161,7 @@ class Fitter:
         compiled, compile_seconds = self._compiled_for(inputs, model)
         seed = derive_seed(master_seed, pair.pair.x, pair.pair.y, model)
         started = time.perf_counter()
-        with_data = (compiled.for_inputs(inputs) if model == normal_model.NAME
+        with_data = (compiled.for_inputs(inputs) if model in HAND_WRITTEN
                      else compiled.with_data(**inputs.values))
         retries = retry_targets(self.sampler.target_accept) if self.max_divergences is not None else ()
         attempts: list[SamplingAttempt] = []
