@@ -89,6 +89,7 @@ the trapezoidal rule on the whole grid.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from functools import cached_property
 
@@ -701,9 +702,10 @@ class ExactPosterior:
         """zeta-quantiles for 0 <= q <= 1, limited to the grid (its ends for q = 0 and 1), all at once.
 
         Each q is bracketed by the grid interval where the cumulative spline (below 0.5) or the survival
-        spline (above, so tiny upper tails keep their digits) crosses it, then the crossing is found by
-        bisection on all brackets together: 60 halvings shrink a bracket below one floating-point step of
-        the grid, the precision of a scalar root-finder, with one vectorised spline call per halving.
+        spline (above, so tiny upper tails keep their digits) crosses it; the crossing is then found for all
+        brackets together by Newton's method on the spline, with the density as its derivative, falling back
+        to bisection for any step that would leave its bracket (a safeguarded Newton iteration, common
+        practice), until the next step would be below a scalar root-finder's tolerance of 1e-15.
         """
         lower_half = probs <= 0.5
         target = np.where(lower_half, np.clip(probs, 0.0, 0.5), 1.0 - np.clip(probs, 0.5, 1.0))
@@ -724,17 +726,37 @@ class ExactPosterior:
         out = np.where(f_lo == 0.0, lo, np.where(f_hi == 0.0, hi, out))
         bracketed = f_lo * f_hi < 0.0
         if bracketed.any():
-            a, b, f_a = lo[bracketed], hi[bracketed], f_lo[bracketed]
-            rising, goal = lower_half[bracketed], target[bracketed]
-            for _ in range(60):
-                middle = 0.5 * (a + b)
-                f_middle = gap(middle, rising, goal)
-                same_side = np.sign(f_middle) == np.sign(f_a)
-                a, f_a = np.where(same_side, middle, a), np.where(same_side, f_middle, f_a)
-                b = np.where(same_side, b, middle)
-            out[bracketed] = 0.5 * (a + b)
+            out[bracketed] = self._newton_in_brackets(lo[bracketed], hi[bracketed], f_lo[bracketed],
+                                                      lower_half[bracketed], target[bracketed], gap)
         out = np.where(probs <= 0.0, self.z[0], np.where(probs >= 1.0, self.z[-1], out))
         return out
+
+    def _newton_in_brackets(self, a: np.ndarray, b: np.ndarray, f_a: np.ndarray, rising: np.ndarray,
+                            goal: np.ndarray, gap: Callable[..., np.ndarray]) -> np.ndarray:
+        """The roots of ``gap`` inside the brackets [a, b] (a sign change in each), to a few ulps."""
+        slope = self._cdf_slope
+        x = 0.5 * (a + b)
+        for _ in range(100):
+            f_x = gap(x, rising, goal)
+            # the survival spline falls as fast as the cumulative one rises
+            derivative = np.where(rising, slope(x), -slope(x))
+            same_side = np.sign(f_x) == np.sign(f_a)
+            a, f_a = np.where(same_side, x, a), np.where(same_side, f_x, f_a)
+            b = np.where(same_side, b, x)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                newton = x - f_x / derivative
+            # a Newton step below the root-finder's tolerance (1e-15, absolute and relative) ends the search,
+            # even where rounding puts it just outside the bracket
+            done = (f_x == 0.0) | (np.abs(newton - x) <= 1e-15 * (1.0 + np.abs(x)))
+            if done.all():
+                break
+            inside = np.isfinite(newton) & (newton > a) & (newton < b)
+            x = np.where(done, x, np.where(inside, newton, 0.5 * (a + b)))
+        return x
+
+    @cached_property
+    def _cdf_slope(self) -> interpolate.PPoly:
+        return self._cdf_spline.derivative()
 
     def _log_rho_density_at_z(self, zeta: float) -> float:
         one_minus, one_plus = _one_minus_plus_tanh(np.array([zeta]))
