@@ -9,6 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats as sps
+from scipy.signal import fftconvolve
 
 from reportgen.exact import fisher_z_interval
 from reportgen.spec import Rope, Rule
@@ -67,6 +68,52 @@ def rope_decision(hdi: tuple[float, float], rope: Rope) -> str:
     return "undecided"
 
 
+# Binned kernel density (see ``bounded_density``): fine-grid points per bandwidth, the kernel's reach in
+# bandwidths (beyond 9 the Gaussian is below 3e-18 of its peak), and the most fine-grid points allowed
+# before the density is summed directly instead.
+BIN_POINTS_PER_BANDWIDTH = 64
+KERNEL_REACH = 9.0
+MAX_BINS = 1 << 18
+
+
+def scott_bandwidth(values: np.ndarray) -> float:
+    """Scott's rule in one dimension: sample SD (ddof = 1) times n^(-1/5), as scipy.stats.gaussian_kde uses."""
+    return float(np.std(values, ddof=1)) * values.size ** (-0.2)
+
+
+def _binned_kde(values: np.ndarray, bandwidth: float, grid: np.ndarray) -> np.ndarray | None:
+    """Gaussian kernel density of ``values`` at the evenly spaced ``grid``, by linear binning and FFT.
+
+    The draws are spread onto a fine grid holding the output grid's points (each draw's unit weight is
+    split between its two neighbouring fine points in proportion to closeness), and the binned weights
+    are convolved with the sampled kernel (Silverman 1982, *Appl. Statist.* 31(1); Wand 1994, *J. Comput.
+    Graph. Statist.* 3(4)). Draws more than ``KERNEL_REACH`` bandwidths outside the grid add nothing
+    visible and are left out. None for a one-point grid or when the fine grid would need more than
+    ``MAX_BINS`` points.
+    """
+    if grid.size < 2:
+        return None
+    step = float(grid[1] - grid[0])
+    per_step = max(1, math.ceil(BIN_POINTS_PER_BANDWIDTH * step / bandwidth))
+    fine_step = step / per_step
+    pad = math.ceil(KERNEL_REACH * bandwidth / fine_step)
+    size = (grid.size - 1) * per_step + 1 + 2 * pad
+    if size > MAX_BINS:
+        return None
+    position = (values - (float(grid[0]) - pad * fine_step)) / fine_step
+    inside = (position >= 0.0) & (position <= size - 1)
+    position = position[inside]
+    left = np.minimum(np.floor(position).astype(np.intp), size - 2)
+    share_right = position - left
+    weights = (np.bincount(left, weights=1.0 - share_right, minlength=size)
+               + np.bincount(left + 1, weights=share_right, minlength=size))
+    offsets = np.arange(-pad, pad + 1) * (fine_step / bandwidth)
+    kernel = np.exp(-0.5 * offsets * offsets) / (math.sqrt(2.0 * math.pi) * bandwidth)
+    smoothed = fftconvolve(weights, kernel, mode="same")
+    # FFT rounding leaves values of order 1e-16 of the peak, of either sign, where the density is nil
+    return np.maximum(smoothed[pad:size - pad:per_step], 0.0)
+
+
 def bounded_density(
     draws: np.ndarray,
     lower: float | None = None,
@@ -76,8 +123,17 @@ def bounded_density(
 ) -> tuple[np.ndarray, np.ndarray]:
     """Gaussian kernel density on a grid, reflected at known bounds.
 
-    Reflection keeps the density from leaking past a bound such as rho = 1 or
-    sigma = 0 (common practice; Silverman 1986, Density Estimation, sec. 2.10).
+    The kernel is Gaussian with Scott's bandwidth (Scott 1992, *Multivariate Density Estimation*),
+    the density of scipy.stats.gaussian_kde. Reflection keeps the density from leaking past a
+    bound such as rho = 1 or sigma = 0 (common practice; Silverman 1986, Density Estimation, sec. 2.10):
+    each draw's mirror image in the bound is added as a draw, which is the same as adding the density
+    at the mirrored grid.
+
+    It is computed by linear binning onto a fine grid and an FFT convolution (``_binned_kde``), in
+    O(draws + fine grid log fine grid) instead of O(draws x grid); with ``BIN_POINTS_PER_BANDWIDTH``
+    fine points per bandwidth it agrees with the direct sum to within about 1e-5 of the peak (measured
+    in tests/test_density.py). Where the bandwidth is so small against the grid's span that the fine
+    grid would exceed ``MAX_BINS`` points, the density is summed directly (scipy.stats.gaussian_kde).
 
     The grid is relative to ``offset`` (the density of ``draws - offset``; the
     bounds are absolute and shifted the same way). Draws far from zero compared
@@ -102,13 +158,22 @@ def bounded_density(
         density = np.zeros_like(grid)
         density[np.argmin(np.abs(grid - values[0]))] = 1.0
         return grid, density
-    kde = sps.gaussian_kde(values, bw_method="scott")
-    density = kde(grid)
+    bandwidth = scott_bandwidth(values)
+    mirrored = [values]
     if low_bound is not None:
-        density += kde(2.0 * low_bound - grid)
+        mirrored.append(2.0 * low_bound - values)
     if high_bound is not None:
-        density += kde(2.0 * high_bound - grid)
-    return grid, density
+        mirrored.append(2.0 * high_bound - values)
+    # every mirrored copy carries weight 1/n, like the original draws
+    density = _binned_kde(np.concatenate(mirrored), bandwidth, grid)
+    if density is None:
+        kde = sps.gaussian_kde(values, bw_method="scott")
+        density = kde(grid)
+        for bound in (low_bound, high_bound):
+            if bound is not None:
+                density += kde(2.0 * bound - grid)
+        return grid, density
+    return grid, density / values.size
 
 
 @dataclass(frozen=True)

@@ -95,7 +95,8 @@ def test_bounded_density_relative_to_an_offset_matches_scipy() -> None:
     assert np.all(np.diff(grid) > 0) and grid.size == 256
     # reference: scipy's Gaussian KDE (Scott's rule) of the same draws shifted by the same offset
     reference = stats.gaussian_kde(draws - 1e9, bw_method="scott")(grid)
-    np.testing.assert_allclose(density, reference, rtol=1e-12, atol=0.0)
+    # the density is binned (reportgen.summaries.bounded_density): within 1e-4 of the peak of the direct sum
+    np.testing.assert_allclose(density, reference, rtol=0.0, atol=1e-4 * reference.max())
     assert np.trapezoid(density, grid) == pytest.approx(1.0, abs=5e-3)  # a density integrates to 1
 
 

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from reportgen.checks.influence import DIRECT_MAX_N, leave_one_out, leave_one_out_r
+from reportgen.checks.influence import DIRECT_MAX_N, GRID_POINTS, _node_count, leave_one_out, leave_one_out_r
 from reportgen.crosscheck import exact_rule_probability
 from reportgen.exact import exact_posterior
 from reportgen.spec import Rule
@@ -152,3 +152,20 @@ def test_a_row_whose_removal_leaves_a_constant_column_is_flagged_with_no_shift()
     assert np.all(np.isfinite(result.shifts[:5]))
     assert result.flagged_rows[0] == 15
     assert np.isfinite(result.max_shift)
+
+
+def test_few_nodes_at_many_rows_still_match_direct_exact_posteriors() -> None:
+    """n = 5,000: one row moves r little, so the grid has few nodes (fewer than GRID_POINTS); the shifts of
+    the most and least correlated leave-one-out subsamples and of 40 others still equal
+    reportgen.exact.exact_posterior(n - 1, r_i) called directly, within 1e-9."""
+    n = 5000
+    x, y = correlated(n, 0.4, seed=11)
+    r_loo = leave_one_out_r(x, y)
+    z = np.arctanh(r_loo)
+    assert _node_count(n - 1, float(z.max() - z.min())) < GRID_POINTS
+    result = leave_one_out(x, y, np.arange(n), 1.0, 1.0, [POSITIVE], threshold=0.01)
+    order = np.argsort(r_loo)
+    rows = np.unique(np.r_[order[:5], order[-5:], np.random.default_rng(1).choice(n, 40, replace=False)])
+    direct = np.array([exact_posterior(n - 1, float(r_loo[i])).median for i in rows]) - result.median_full
+    assert np.max(np.abs(result.shifts[rows] - direct)) < 1e-9
+    assert result.flips == ()  # P(rho > 0) is 1 to rounding with or without any one row

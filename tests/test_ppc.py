@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 from scipy import stats
 
 from reportgen import exact
 from reportgen.checks.ppc import (
     SIMULATED_SKEW_MAX_N,
+    dagostino_skewness_z,
     normal_skewness_variance,
     predictive_check,
     replicated_correlations,
@@ -97,21 +99,38 @@ def test_skewness_variance_formula_matches_simulation_at_the_switch() -> None:
     assert abs(simulated_var / normal_skewness_variance(SIMULATED_SKEW_MAX_N) - 1.0) < 3.0 * np.sqrt(2.0 / count)
 
 
-def test_large_n_uses_the_normal_approximation_and_agrees_with_simulation() -> None:
-    """Above the switch the skewness p-value is 2 Phi(-|g1| / sd) (normal approximation, common practice); it
-    must agree with the simulated one just below the switch for the same observed skewness."""
-    rng = np.random.default_rng(31)
-    n = SIMULATED_SKEW_MAX_N + 1
-    y = rng.standard_normal(n)
+@pytest.mark.parametrize("n", [SIMULATED_SKEW_MAX_N + 1, 10_000, 1_000_000])
+def test_above_the_switch_the_skewness_p_value_is_scipy_skewtest(n: int) -> None:
+    """Above the switch the skewness p-value is D'Agostino's (1970) two-sided normal p; the reference is
+    scipy.stats.skewtest (which computes g1 itself with bias=True), to 1e-10."""
+    rng = np.random.default_rng(n)
     sd = np.sqrt(normal_skewness_variance(n))
     x = rng.standard_normal(n)
-    x = x + 1.5 * sd * (x**2 - 1.0) / 2.0  # skewness about 3 * 0.75 = 2.25 sd
-    g1 = stats.skew(x, bias=True)
+    x = x + 0.5 * sd * (x**2 - 1.0) / 2.0  # skewed by about 1.5 SDs of g1, give or take sampling noise
+    y = rng.standard_normal(n)
     check = predictive_check(np.full(10, 0.0), x, y, seed=1)
-    assert abs(check.p_skew_x - 2.0 * stats.norm.sf(abs(g1) / sd)) < 1e-12
-    reference = simulated_skewness(SIMULATED_SKEW_MAX_N, 2000, np.random.default_rng(2))
-    simulated_p = 2.0 * min(np.mean(reference >= g1), np.mean(reference <= g1))
-    assert abs(check.p_skew_x - simulated_p) < 0.03
+    assert check.p_skew_x == pytest.approx(stats.skewtest(x).pvalue, rel=1e-10)
+    assert check.p_skew_y == pytest.approx(stats.skewtest(y).pvalue, rel=1e-10)
+    assert dagostino_skewness_z(float(stats.skew(x, bias=True)), n) == pytest.approx(
+        stats.skewtest(x).statistic, rel=1e-10)
+
+
+def test_skewness_p_value_just_above_the_switch_agrees_with_simulation() -> None:
+    """Just above the switch, D'Agostino's p must agree with the simulated one (20,000 samples of n normal
+    values, scipy.stats.skew) within 3 sampling SEs, for observed skewness of 1, 2 and 2.5 SDs of g1."""
+    n, count = SIMULATED_SKEW_MAX_N + 1, 20_000
+    reference = simulated_skewness(n, count, np.random.default_rng(2))
+    for size in (1.0, 2.0, 2.5):
+        g1 = size * np.sqrt(normal_skewness_variance(n))
+        simulated_p = 2.0 * min(np.mean(reference >= g1), np.mean(reference <= g1))
+        ours = 2.0 * stats.norm.sf(abs(dagostino_skewness_z(g1, n)))
+        allowed = 3.0 * 2.0 * np.sqrt(simulated_p / 2.0 * (1.0 - simulated_p / 2.0) / count)
+        assert abs(ours - simulated_p) < allowed, size
+
+
+def test_dagostino_needs_eight_rows() -> None:
+    with pytest.raises(ValueError, match="at least 8 rows"):
+        dagostino_skewness_z(0.1, 7)
 
 
 def test_deterministic_for_a_seed_and_constant_columns_give_nan() -> None:

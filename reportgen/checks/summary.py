@@ -17,11 +17,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from reportgen import exact
 from reportgen.checks.influence import Influence, leave_one_out
 from reportgen.checks.ppc import PredictiveCheck, predictive_check
 from reportgen.checks.shape import Discreteness, Shape, discreteness, shape_checks
-from reportgen.data import sufficient_stats
 from reportgen.spec import Checks, Rule
 
 # Codes written to results.csv's model_warnings column; scripts rely on them.
@@ -188,14 +186,11 @@ def model_checks(
     ]
     return ModelChecks(influence=influence, shape=shape, discrete_x=discrete_x, discrete_y=discrete_y,
                        predictive=predictive, warnings=tuple(w for w in found if w is not None),
-                       strong_influence=_strong_influence(influence, x, y, rho_prior, settings.influence_shift))
+                       strong_influence=_strong_influence(influence, settings.influence_shift))
 
 
-def _strong_influence(influence: Influence, x: np.ndarray, y: np.ndarray, rho_prior: tuple[float, float],
-                      threshold: float) -> bool:
+def _strong_influence(influence: Influence, threshold: float) -> bool:
     """Does one row alone move the median of rho by more than the threshold and the posterior SD?"""
     if not influence.applies or not np.isfinite(influence.max_shift):
         return bool(influence.applies and influence.flagged_rows and not np.isfinite(influence.max_shift))
-    stats = sufficient_stats(x, y)
-    sd = float(exact.exact_posterior(stats.n, stats.sample_r, *rho_prior, one_minus_abs_r=stats.one_minus_abs_r).sd)
-    return bool(influence.max_shift > max(threshold, sd))
+    return bool(influence.max_shift > max(threshold, influence.sd_full))
