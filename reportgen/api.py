@@ -25,6 +25,7 @@ import pandas as pd
 from reportgen import runner
 from reportgen.data import Table, load_pairs
 from reportgen.errors import DataError, ReportgenError, SpecError
+from reportgen.execution.executors import executor_choice
 from reportgen.fit import Fitter
 from reportgen.results import PairResult
 from reportgen.runs.publish import resolve_out
@@ -121,6 +122,9 @@ def run(
     model: str | None = None,
     previous: str | Path | None = None,
     quick: bool = False,
+    executor: str | None = None,
+    scheduler: str | None = None,
+    workers: int | None = None,
 ) -> pd.DataFrame:
     """Run a spec as ``reportgen run SPEC --out OUT`` does, and return its results table.
 
@@ -140,6 +144,11 @@ def run(
         An earlier run's output folder, as ``--previous`` (default None).
     quick
         A quick draft, as ``--quick``: short chains, thresholds they can reach, every page marked DRAFT.
+    executor, scheduler, workers
+        Where the pairs are fitted, as ``--executor``, ``--scheduler`` and ``--workers``: ``"processes"``
+        (default None means this: local worker processes when the run has enough pairs to gain from them),
+        or ``"dask"`` with ``scheduler`` the address of a dask scheduler (``"tcp://host:8786"``). The
+        results are the same numbers and files whichever is used.
 
     Returns
     -------
@@ -150,8 +159,9 @@ def run(
     Raises
     ------
     ReportgenError
-        SpecError, DataError, OutputError or ReportAssetError with the command line's message.
+        SpecError, DataError, OutputError, ReportAssetError or ExecutorError with the command line's message.
     """
+    chosen_executor = executor_choice(executor, scheduler, workers)
     loaded = spec if isinstance(spec, Spec) else load_spec(spec)
     chosen = _with_overrides(loaded, engine, model, quick, seed=seed, draws=draws, tune=tune, chains=chains)
     chosen = runner.with_report_date(chosen)  # pinned first, so {date} in out and the report agree
@@ -170,7 +180,8 @@ def run(
         stack.enter_context(handling_signals())  # Ctrl-C stops the run as on the command line
         try:
             outcome = runner.run(chosen, folder_out, command_line=command,
-                                 previous=Path(previous) if previous is not None else None)
+                                 previous=Path(previous) if previous is not None else None,
+                                 executor=chosen_executor)
         except ReportgenError as exc:
             if frame_path is None:
                 raise

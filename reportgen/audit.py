@@ -15,6 +15,7 @@ from dataclasses import replace
 from pathlib import Path
 
 from reportgen import runner
+from reportgen.execution.executors import ExecutorChoice
 from reportgen.fit import Fitter
 from reportgen.runs import publish
 from reportgen.runs.snapshot import RECORD_FILE, load_run
@@ -31,11 +32,13 @@ VERIFICATION_FILE = "verification.json"
 
 
 def verify_run(run_dir: Path, data: Path | None = None, out: Path | None = None, *,
-               command_line: list[str] | None = None, fitter: Fitter | None = None) -> Verification:
+               command_line: list[str] | None = None, fitter: Fitter | None = None,
+               executor: ExecutorChoice | None = None) -> Verification:
     """Rerun the run recorded in ``run_dir`` and judge it against the original.
 
     ``data`` replaces the recorded data path (a data file that moved; its hash must still match).
     ``out`` keeps the rerun there, with verification.json. ``fitter`` may carry compiled models.
+    ``executor`` says where the rerun's pairs are fitted (default None: in this process).
 
     Raises
     ------
@@ -55,7 +58,8 @@ def verify_run(run_dir: Path, data: Path | None = None, out: Path | None = None,
     with tempfile.TemporaryDirectory(prefix="reportgen-verify-") as scratch:
         rerun = Path(scratch) / "rerun"
         earlier = previous_folder(snapshot.record)  # a run with --previous is rerun with it
-        runner.run(spec, rerun, command_line=line, fitter=fitter, **({"previous": earlier} if earlier else {}))
+        runner.run(spec, rerun, command_line=line, fitter=fitter, executor=executor,
+                   **({"previous": earlier} if earlier else {}))
         verification = judge(run_dir, rerun)
         verification = replace(verification, notes=(*notes, *verification.notes),
                                rerun=str(out) if out is not None else None)  # the scratch folder is gone

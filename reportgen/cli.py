@@ -239,7 +239,7 @@ def _report_outcome(outcome: Any, spec: Any) -> None:
 
 
 def _run_one(spec_path: Path, out: Path, engine: str | None, model: str | None, previous: Path | None = None,
-             fitter: Any = None, say: bool = True, **overrides: int | None) -> Any:
+             fitter: Any = None, say: bool = True, executor: Any = None, **overrides: int | None) -> Any:
     from reportgen.runner import run, with_report_date
 
     # the date is pinned here so that {date} in --out and the report carry the same day
@@ -247,14 +247,14 @@ def _run_one(spec_path: Path, out: Path, engine: str | None, model: str | None, 
     out = resolve_out(out, spec.document.report.date)
     click.get_current_context().meta[OUT_KEY] = out
     outcome = run(spec, out, command_line=sys.argv, progress=_progress_printer(), previous=previous,
-                  fitter=fitter, on_start=_say_settings if say else None)
+                  fitter=fitter, on_start=_say_settings if say else None, executor=executor)
     _report_outcome(outcome, spec)
     return outcome
 
 
 def _run(spec_path: Path, out: Path, engine: str | None, model: str | None, previous: Path | None = None,
-         **overrides: int | None) -> None:
-    sys.exit(_run_one(spec_path, out, engine, model, previous, **overrides).exit_code)
+         executor: Any = None, **overrides: int | None) -> None:
+    sys.exit(_run_one(spec_path, out, engine, model, previous, executor=executor, **overrides).exit_code)
 
 
 sampler_options = [
@@ -280,6 +280,32 @@ def with_sampler_options(func: F) -> F:
     return func
 
 
+executor_options = [
+    click.option("--executor", "executor", type=click.Choice(["processes", "dask"]), default=None,
+                 help="Where the pairs are fitted: processes (default: a pool of local worker processes, used "
+                      "when the run has enough pairs to gain from it) or dask (the cluster at --scheduler). "
+                      "The outputs are the same bytes either way."),
+    click.option("--scheduler", "scheduler", metavar="ADDRESS", default=None,
+                 help="The dask scheduler's address (e.g. tcp://host:8786); only with --executor dask."),
+    click.option("--workers", "workers", type=int, default=None,
+                 help="Local worker processes for --executor processes (default: one per CPU, and none for "
+                      "a run of few pairs); 1 fits every pair in this process."),
+]
+
+
+def with_executor_options(func: F) -> F:
+    for option in reversed(executor_options):
+        func = option(func)
+    return func
+
+
+def _executor(executor: str | None, scheduler: str | None, workers: int | None) -> Any:
+    """The executor options, checked before anything is read (a wrong combination exits 2, one line)."""
+    from reportgen.execution.executors import executor_choice
+
+    return executor_choice(executor, scheduler, workers)
+
+
 @main.command("run")
 @click.argument("spec_path", metavar="SPEC", type=click.Path(path_type=Path))
 @click.option("-o", "--out", "out", type=click.Path(path_type=Path), required=True,
@@ -287,11 +313,13 @@ def with_sampler_options(func: F) -> F:
 @click.option("--previous", "previous", type=click.Path(path_type=Path), default=None,
               help="An earlier run's output folder: the report gains a section on what changed since it.")
 @with_sampler_options
+@with_executor_options
 @user_errors
 def run_command(spec_path: Path, out: Path, engine: str | None, model: str | None, previous: Path | None,
-                **overrides: int | None) -> None:
+                executor: str | None, scheduler: str | None, workers: int | None, **overrides: int | None) -> None:
     """Fit every pair of SPEC and write the report, results and record to --out."""
-    _run(spec_path, out, engine, model, previous, **overrides)
+    chosen = _executor(executor, scheduler, workers)
+    _run(spec_path, out, engine, model, previous, executor=chosen, **overrides)
 
 
 @main.command("check")
@@ -315,10 +343,13 @@ def check_command(spec_path: Path) -> None:
 @click.option("-o", "--out", "out", type=click.Path(path_type=Path), default=Path("demo_output"),
               show_default=True, help="Output folder; {date} and {period} are filled from the report date.")
 @with_sampler_options
+@with_executor_options
 @user_errors
-def demo_command(out: Path, engine: str | None, model: str | None, **overrides: int | None) -> None:
+def demo_command(out: Path, engine: str | None, model: str | None, executor: str | None, scheduler: str | None,
+                 workers: int | None, **overrides: int | None) -> None:
     """Run the bundled demo (an invented river-monitoring survey) as three monthly reruns, each compared
     with the month before, then a change report of the last two months and a history of all three."""
+    chosen = _executor(executor, scheduler, workers)
     from reportgen.fit import Fitter
     from reportgen.runner import with_report_date
     from reportgen.tracking import compare, history
@@ -332,7 +363,7 @@ def demo_command(out: Path, engine: str | None, model: str | None, **overrides: 
         folder = out / period
         # said once, at the first month's start: the three months share their settings
         outcome = _run_one(spec_path, folder, engine, model, folders[-1] if folders else None, fitter,
-                           say=not folders, **overrides)
+                           say=not folders, executor=chosen, **overrides)
         folders.append(folder)
         worst = max(worst, outcome.exit_code)
     changed = compare(folders[-2], folders[-1], out / "changes")
@@ -350,15 +381,18 @@ def demo_command(out: Path, engine: str | None, model: str | None, **overrides: 
               help="The data file, when it is no longer where the run read it.")
 @click.option("--out", "out", type=click.Path(path_type=Path), default=None,
               help="Keep the rerun in this folder, with verification.json.")
+@with_executor_options
 @user_errors
-def verify_command(run_dir: Path, data: Path | None, out: Path | None) -> None:
+def verify_command(run_dir: Path, data: Path | None, out: Path | None, executor: str | None, scheduler: str | None,
+                   workers: int | None) -> None:
     """Re-run a past run from its record and say whether it reproduces (exit 0) or not (exit 1)."""
+    chosen = _executor(executor, scheduler, workers)
     from reportgen.audit import verify_run
     from reportgen.runs.verify import summary_lines
 
     if out is not None:
         click.get_current_context().meta[OUT_KEY] = out
-    verification = verify_run(run_dir, data, out, command_line=sys.argv)
+    verification = verify_run(run_dir, data, out, command_line=sys.argv, executor=chosen)
     with _stdout_may_fail():
         for line in summary_lines(verification):
             click.echo(line)

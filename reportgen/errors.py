@@ -40,3 +40,7 @@ class OutputError(ReportgenError):
 
 class ReportAssetError(ReportgenError):
     """A report asset (logo, template folder) is missing or not acceptable."""
+
+
+class ExecutorError(ReportgenError):
+    """The executor asked for cannot be used (options that do not fit, a cluster that does not answer)."""

@@ -9,8 +9,8 @@ failed, interrupted or killed run leaves the previous outputs as they were.
 
 from __future__ import annotations
 
+import contextlib
 import csv
-import dataclasses
 import datetime as dt
 import hashlib
 import io
@@ -20,8 +20,6 @@ import math
 import os
 import sys
 import tempfile
-import time
-import warnings
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -33,8 +31,10 @@ import pandas as pd
 from reportgen import report
 from reportgen.data import PairData, Table, load_pairs, load_table
 from reportgen.errors import OutputError
+from reportgen.execution.executors import ExecutorChoice, Plan, pair_works, plan_for
+from reportgen.execution.work import LogEvent
 from reportgen.fit import Fitter, PairFit
-from reportgen.results import RunResults, pair_outcome, results_rows, run_results, sampled_models
+from reportgen.results import RunResults, results_rows, run_results
 from reportgen.runs import publish, signals
 from reportgen.runs.compare import Comparison, changes_rows, compare_runs
 from reportgen.runs.record import RunClock, build_record, draws_file
@@ -76,10 +76,14 @@ class RunLog:
         self.path = path
 
     def event(self, event: str, *, pair: str | None = None, level: str = "info", **details: object) -> None:
+        self.write(LogEvent(event, pair, level, details))
+
+    def write(self, event: LogEvent) -> None:
+        """One event, with the time it happened (a worker's events are written when its pair comes back)."""
         if self.path is None:
             return
-        line = {"time": dt.datetime.now(dt.UTC).isoformat(timespec="milliseconds"), "level": level,
-                "pair": pair, "event": event, **details}
+        line = {"time": event.time, "level": event.level, "pair": event.pair, "event": event.event,
+                **event.details}
         with self.path.open("a", encoding="utf-8") as handle:
             handle.write(json.dumps(line, ensure_ascii=False, default=str) + "\n")
 
@@ -184,76 +188,56 @@ def fit_all(
     clock: RunClock,
     progress: ProgressCallback | None = None,
     log: RunLog | None = None,
+    executor: ExecutorChoice | Plan | None = None,
 ) -> tuple[RunResults, dict[str, tuple[PairFit, ...]]]:
     """Fit every pair with the models it needs; the second value holds each pair's fits by pair key.
 
-    Ctrl-C or SIGTERM during a fit is not seen as an exception (the sampler catches it and returns
-    NaN-padded draws), so the recorded signal is checked after each fit and stops the run.
+    ``executor`` says where (default None: in this process; see ``execution.executors``). The results,
+    the run.log events and the progress come in pair order whatever the executor. Ctrl-C or SIGTERM
+    during a fit in this process is not seen as an exception (the sampler catches it and returns
+    NaN-padded draws), so the recorded signal is checked after each fit and after each pair; the worker
+    processes are stopped before the interrupt goes on.
     """
     log = log or RunLog(None)
     spec = prepared.spec
+    plan = executor if isinstance(executor, Plan) else plan_run(executor, prepared, fitter)
+    if plan.why:
+        log.event("executor", why=plan.why, **plan.describe())
     fits: dict[str, tuple[PairFit, ...]] = {}
     results = []
     total = len(prepared.pairs)
-    for index, pair in enumerate(prepared.pairs):
-        key = pair.pair.key
-        if progress:
-            progress(key, index, total)
-        started = time.perf_counter()
-        done: dict[str, PairFit] = {}
-        failures: dict[str, str] = {}
-        for model in sampled_models(spec.document.engine, pair.pair.model, pair.stats.n,
-                                    spec.document.checks.student_t_max_rows, adjusted=pair.adjustment is not None):
-            fit_started = time.perf_counter()
-            # the sampler's warnings go to run.log (the filters in force still decide which are kept)
-            with warnings.catch_warnings(record=True) as caught:
-                try:
-                    fit = fitter.fit(fitted_data(pair, model), spec.document.sampler.seed, model)
-                except Exception as exc:  # one pair's sampler crashing must not sink the other pairs
-                    failures[model] = _one_line(exc)
-                else:
-                    failures.update({model: reason} if (reason := _not_finite(fit)) else {})
-                    done.update({} if reason else {model: fit})
+
+    def write(event: LogEvent) -> None:
+        if event.event == "fit" and event.details.get("status") == "failed":
+            LOGGER.warning("sampler (%s model) failed for %s: %s", event.details.get("model"), event.pair,
+                           event.details.get("reason"))
+        log.write(event)
+
+    works = pair_works(plan, spec, prepared.pairs, fitter, emit=write, check_interrupt=signals.raise_if_interrupted)
+    with contextlib.closing(works):  # an interrupt or an error stops the workers
+        for index, pair in enumerate(prepared.pairs):
+            if progress:
+                progress(pair.pair.key, index, total)
+            work = next(works)
             signals.raise_if_interrupted()
-            for warning in caught:
-                log.event("sampler warning", pair=key, level="warning", model=model,
-                          message=" ".join(str(warning.message).split())[:300])
-            if model in failures:
-                LOGGER.warning("sampler (%s model) failed for %s: %s", model, key, failures[model])
-            log.event("fit", pair=key, level="warning" if model in failures else "info", model=model,
-                      status="failed" if model in failures else "sampled", reason=failures.get(model),
-                      seconds=round(time.perf_counter() - fit_started, 3))
-        if done:
-            fits[key] = tuple(done.values())
-        outcome = pair_outcome(spec, pair, done, failures)
-        results.append(outcome)
-        clock.pair_seconds[key] = time.perf_counter() - started
-        log.event("pair done", pair=key, status=outcome.status, engine=outcome.engine, model=outcome.model,
-                  seconds=round(clock.pair_seconds[key], 3))
-    clock.compile_seconds.update(fitter.compile_seconds)
+            if plan.name != "serial":  # a worker's events, written now, in pair order
+                for event in work.events:
+                    write(event)
+            if work.fits:
+                fits[work.key] = work.fits
+            results.append(work.result)
+            clock.pair_seconds[work.key] = work.seconds
+            for structure, seconds in work.compile_seconds.items():
+                clock.compile_seconds[structure] = max(seconds, clock.compile_seconds.get(structure, 0.0))
+            log.event("pair done", pair=work.key, status=work.result.status, engine=work.result.engine,
+                      model=work.result.model, seconds=round(work.seconds, 3))
     return run_results(spec, tuple(results)), fits
 
 
-def fitted_data(pair: PairData, model: str) -> PairData:
-    """The data a model is fitted to: the partial model sees the rows complete on the controls too, so its
-    draws are mapped back to the data's units with those rows' means and SDs."""
-    if model == "partial" and pair.adjustment is not None:
-        return dataclasses.replace(pair, stats=pair.adjustment.stats)
-    return pair
-
-
-def _not_finite(fit: PairFit) -> str | None:
-    """Why draws holding NaN or inf cannot be summarised (a sampler that stopped early pads with NaN)."""
-    bad = [name for name, values in fit.draws.items() if not np.isfinite(values).all()]
-    if not bad:
-        return None
-    return (f"the sampler returned draws that are not finite numbers (NaN or inf) for {', '.join(bad)}; "
-            "the sampler stopped early or diverged badly")
-
-
-def _one_line(exc: BaseException) -> str:
-    text = " ".join(str(exc).split()) or type(exc).__name__
-    return f"{type(exc).__name__}: {text}"[:200]
+def plan_run(executor: ExecutorChoice | None, prepared: Prepared, fitter: Fitter) -> Plan:
+    """Where this run's pairs are worked on (see ``execution.executors.plan_for``)."""
+    document = prepared.spec.document
+    return plan_for(executor, len(prepared.pairs), document.engine, document.sampler.chains, fitter.cores)
 
 
 # A cell starting with one of these is read by spreadsheet programs as a formula (tab and carriage
@@ -352,12 +336,14 @@ def run(
     fitter: Fitter | None = None,
     previous: Path | None = None,
     on_start: Callable[[Spec], None] | None = None,
+    executor: ExecutorChoice | None = None,
 ) -> RunOutcome:
     """Fit, render and publish into ``out_dir`` (``{date}`` and ``{period}`` filled from the report date).
     The folder is locked from before the first fit until its new contents are published. With
     ``previous`` (an earlier run's output folder), the report gains a section on what changed since it.
     ``on_start`` is called with the checked spec once every check has passed, before the first fit: a run
-    that is refused says nothing else."""
+    that is refused says nothing else. ``executor`` says where the pairs are worked on (default None: in
+    this process); the outputs are the same bytes whichever it is, and record.json's run part names it."""
     clock = RunClock()
     prepared = prepare(spec)
     earlier = load_run(previous) if previous is not None else None  # a bad folder is refused before any fit
@@ -380,9 +366,13 @@ def run(
                   seed=spec.document.sampler.seed, pid=os.getpid())
         log.event("data loaded", data=str(spec.data_path), rows=prepared.table.n_rows,
                   pairs=len(prepared.pairs), at=loaded.isoformat(timespec="milliseconds"))
-        results, fits = fit_all(prepared, fitter, clock, progress, log)
+        plan = plan_run(executor, prepared, fitter)
+        results, fits = fit_all(prepared, fitter, clock, progress, log, plan)
+        # the fitter's core count, whichever executor: the draws do not depend on it, and the record's
+        # reproducible part (printed in the report) must not change with where the pairs were fitted
         record = build_record(spec, prepared.table, results, fits, clock,
                               command_line if command_line is not None else sys.argv, fitter.cores)
+        record["run"]["executor"] = plan.describe()
         write_draws(staging, fits)
         comparison = None
         if earlier is not None:

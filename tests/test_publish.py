@@ -27,6 +27,7 @@ WRAPPER = r'''
 import os, signal, sys, time
 from pathlib import Path
 from reportgen import report, runner
+from reportgen.execution import work
 from reportgen.runs import publish
 
 point = os.environ["REPORTGEN_TEST_POINT"]
@@ -63,7 +64,7 @@ def terminate_first(function):
     return wrapped
 
 if point == "fit":
-    runner.pair_outcome = die
+    work.pair_outcome = die
 elif point == "render":
     report.render_pdf = die
 elif point == "write":
