@@ -44,7 +44,9 @@ def test_downdated_r_equals_pearson_on_the_data_without_the_row(offset: float) -
 
 def test_interpolated_leave_one_out_matches_direct_exact_posteriors_at_n_200() -> None:
     """For n = 200 (interpolation path) each row's shift and verdicts equal those from calling
-    reportgen.exact.exact_posterior(n - 1, r_i) directly; measured median error 3e-11, allowed 1e-8."""
+    reportgen.exact.exact_posterior(n - 1, r_i) directly; measured median error 1.0e-7 with nodes a quarter
+    of a posterior SD apart, allowed 1e-6 (the report shows shifts to 0.001; verdict flips, checked exactly
+    below, are computed directly near a cut-off)."""
     n = 200
     x, y = correlated(n, 0.3, seed=5)
     rules = [POSITIVE, MODEST]
@@ -58,7 +60,7 @@ def test_interpolated_leave_one_out_matches_direct_exact_posteriors_at_n_200() -
     full = exact_posterior(n, float(stats.pearsonr(x, y).statistic))
     assert result.median_full == pytest.approx(full.median, abs=1e-12)
     direct_shifts = np.array([p.median for p in direct]) - full.median
-    assert np.max(np.abs(result.shifts - direct_shifts)) < 1e-8
+    assert np.max(np.abs(result.shifts - direct_shifts)) < 1e-6
     expected_flips = set()
     for i, posterior in enumerate(direct):
         for rule in rules:
