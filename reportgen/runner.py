@@ -20,6 +20,7 @@ import math
 import os
 import sys
 import tempfile
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -345,6 +346,7 @@ def run(
     that is refused says nothing else. ``executor`` says where the pairs are worked on (default None: in
     this process); the outputs are the same bytes whichever it is, and record.json's run part names it."""
     clock = RunClock()
+    stage = time.perf_counter()
     prepared = prepare(spec)
     earlier = load_run(previous) if previous is not None else None  # a bad folder is refused before any fit
     loaded = dt.datetime.now(dt.UTC)
@@ -367,7 +369,9 @@ def run(
         log.event("data loaded", data=str(spec.data_path), rows=prepared.table.n_rows,
                   pairs=len(prepared.pairs), at=loaded.isoformat(timespec="milliseconds"))
         plan = plan_run(executor, prepared, fitter)
+        stage = clock.lap("loading", stage)
         results, fits = fit_all(prepared, fitter, clock, progress, log, plan)
+        stage = clock.lap("fitting and summarising", stage)
         # the fitter's core count, whichever executor: the draws do not depend on it, and the record's
         # reproducible part (printed in the report) must not change with where the pairs were fitted
         record = build_record(spec, prepared.table, results, fits, clock,
@@ -385,11 +389,17 @@ def run(
         if progress:
             progress("rendering the report", len(prepared.pairs), len(prepared.pairs))
         log.event("rendering", status=results.status)
+        stage = clock.lap("record, draws and comparison", stage)
         context = report.build_context(spec, results, pair_data, record, comparison)
+        stage = clock.lap("figures and report sections", stage)
         user_templates = (spec.resolve_input(spec.document.report.templates, "report.templates")
                           if spec.document.report.templates else None)
         html = report.render_html(context, user_templates)
+        stage = clock.lap("HTML", stage)
         pdf, refused = report.render_pdf(html, context["meta"]["date"])
+        stage = clock.lap("PDF", stage)
+        record["run"]["stage_seconds"] = clock.stages(fits)
+        log.event("timings", **record["run"]["stage_seconds"])
         for url in refused:
             log.event("refused url", level="warning", url=url)
         try:

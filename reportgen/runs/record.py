@@ -17,6 +17,7 @@ import hashlib
 import importlib.metadata
 import platform
 import sys
+import time
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -106,6 +107,25 @@ class RunClock:
     started: dt.datetime = field(default_factory=lambda: dt.datetime.now(dt.UTC))
     pair_seconds: dict[str, float] = field(default_factory=dict)
     compile_seconds: dict[str, float] = field(default_factory=dict)
+    # wall seconds of each stage of the run, in order (see ``lap``)
+    stage_wall: dict[str, float] = field(default_factory=dict)
+
+    def lap(self, name: str, since: float) -> float:
+        """Record the wall time of stage ``name`` since ``since`` (a ``time.perf_counter`` value); returns now."""
+        now = time.perf_counter()
+        self.stage_wall[name] = now - since
+        return now
+
+    def stages(self, fits: dict[str, tuple[PairFit, ...]]) -> dict[str, float]:
+        """Where the run's time went: each stage's wall seconds, and the fitting stage split into compiling,
+        sampling and summarising, summed over pairs (with worker processes these sums are seconds of work,
+        which may exceed the stage's wall time)."""
+        sampling = sum(fit.seconds for pair_fits in fits.values() for fit in pair_fits)
+        compiling = sum(self.compile_seconds.values())
+        work = sum(self.pair_seconds.values())
+        split = {"compiling (work)": compiling, "sampling (work)": sampling,
+                 "summarising (work)": max(work - sampling - compiling, 0.0)}
+        return {name: round(seconds, 3) for name, seconds in {**self.stage_wall, **split}.items()}
 
 
 def build_record(
