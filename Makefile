@@ -35,6 +35,7 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_pairs.py
 	$(BIN)/python benchmarks/bench_student_t.py
 	$(BIN)/python benchmarks/bench_groups.py
+	$(BIN)/python benchmarks/bench_report.py
 	$(BIN)/python benchmarks/bench_summaries.py
 	$(BIN)/python benchmarks/bench_executors.py
 	$(BIN)/python benchmarks/bench_csv.py

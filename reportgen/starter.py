@@ -63,6 +63,8 @@ logo = ""            # optional PNG or JPEG, relative to this file, under 2 MB
 templates = ""       # optional folder of templates that override the shipped ones
 layout = "full"      # full: every figure and table, each pair from a new page | compact: pairs follow on
 draft = false        # true: every page says DRAFT (--quick sets it)
+# pair_pages = 30    # which pairs get a page of their own: "all" | "rules_met" | the N strongest;
+                    # default: every pair up to 30 pairs, else the 30 strongest (all are in results.csv)
 
 [data]
 path = {_toml_string(data_path)}   # relative to this spec file; CSV, Excel (.xlsx) or Parquet

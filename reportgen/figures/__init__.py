@@ -78,7 +78,13 @@ from reportgen.figures.style import (
     FigureError,
     plain_text,
 )
-from reportgen.figures.summary import correlation_cmap, correlation_matrix, forest_plot
+from reportgen.figures.summary import (
+    MATRIX_VALUES_MAX,
+    correlation_cmap,
+    correlation_matrix,
+    forest_plot,
+    matrix_shows_values,
+)
 
 __all__ = [
     "ALERT",
@@ -86,6 +92,7 @@ __all__ = [
     "FULL_WIDTH",
     "HALF_WIDTH",
     "INK",
+    "MATRIX_VALUES_MAX",
     "MIST",
     "OK",
     "RASTER_DPI",
@@ -101,6 +108,7 @@ __all__ = [
     "forest_plot",
     "group_forest",
     "mahalanobis_qq",
+    "matrix_shows_values",
     "model_diagram",
     "parameter_densities",
     "plain_text",

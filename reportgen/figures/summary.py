@@ -7,7 +7,8 @@ from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
-from matplotlib.colors import LinearSegmentedColormap
+from matplotlib.cm import ScalarMappable
+from matplotlib.colors import LinearSegmentedColormap, Normalize, to_rgba
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch, Rectangle
@@ -38,7 +39,7 @@ from reportgen.figures.style import (
     _vector,
 )
 
-__all__ = ["correlation_cmap", "correlation_matrix", "forest_plot"]
+__all__ = ["MATRIX_VALUES_MAX", "correlation_cmap", "correlation_matrix", "forest_plot", "matrix_shows_values"]
 
 
 # --------------------------------------------------------------------------
@@ -222,6 +223,17 @@ def correlation_cmap() -> LinearSegmentedColormap:
     )
 
 
+MATRIX_VALUES_MAX = 20
+"""Largest number of matrix rows (variables less one) whose cells print their value; above it the cells are
+too small to read a number, so the matrix is a plain heat map and a dot marks an interval excluding zero."""
+_MIN_LABEL_PT = 3.5  # smallest label of a dense matrix; beyond that only every few variables are named
+
+
+def matrix_shows_values(k: int) -> bool:
+    """Whether a matrix of ``k`` variables prints each cell's value (and outlines), or is a dense heat map."""
+    return k - 1 <= MATRIX_VALUES_MAX
+
+
 @_styled
 def correlation_matrix(
     labels: Sequence[str],
@@ -235,7 +247,11 @@ def correlation_matrix(
     printed to two decimals.  Cells whose credible interval excludes zero are
     outlined and their value is bold.  Where ``medians[i, j]`` is NaN the
     transposed entry is used; a pair missing both ways is a grey "n/a" cell.
-    The diagonal is not drawn.  Square-ish, at most 6.8 in wide.
+    The diagonal is not drawn.  Square-ish, at most 6.8 in wide.  Above
+    :data:`MATRIX_VALUES_MAX` rows the cells are too small for numbers: the
+    matrix becomes one image of colours, a dot marks a cell whose interval
+    excludes zero, and the labels shrink (every few are left out when even
+    3.5 pt would overlap).
 
     Parameters
     ----------
@@ -270,6 +286,8 @@ def correlation_matrix(
             elif math.isfinite(med[j, i]):
                 values[r, j], marked[r, j] = med[j, i], exc[j, i]
     values = np.clip(values, -1.0, 1.0)
+    if m > MATRIX_VALUES_MAX:
+        return _dense_matrix(labels, values, marked)
     lower = np.tril(np.ones((m, m), dtype=bool))
 
     label_size = 7.5 if m <= 10 else 6.5
@@ -348,4 +366,51 @@ def correlation_matrix(
     else:
         ax.legend(note, ["outlined: interval excludes 0"], loc="lower left",
                   bbox_to_anchor=(0.0, 1.02), fontsize=7)
+    return _to_svg(fig)
+
+
+def _dense_matrix(labels: Sequence[str], values: np.ndarray, marked: np.ndarray) -> str:
+    """The heat map of a large matrix: colours as one image, marks as one rasterised layer of dots.
+
+    Thousands of cells drawn one by one as vector shapes (and thousands of numbers) would make the SVG slow
+    to lay out and no easier to read; labels and the colour bar stay vector text.
+    """
+    m = values.shape[0]
+    lower = np.tril(np.ones((m, m), dtype=bool))
+    side = FULL_WIDTH - 1.9  # room for the row labels and the colour bar
+    cell_pt = side * 72.0 / m
+    label_size = min(6.5, max(_MIN_LABEL_PT, 0.8 * cell_pt))
+    every = max(1, math.ceil(label_size / (0.8 * cell_pt))) if 0.8 * cell_pt < _MIN_LABEL_PT else 1
+    names = [_label(s, 60.0, label_size, max_lines=1) for s in labels]
+    cols = [names[j] if j % every == 0 else "" for j in range(m)]
+    rows = [names[i + 1] if (i + 1) % every == 0 else "" for i in range(m)]
+    norm = Normalize(vmin=-1.0, vmax=1.0)
+    cmap = correlation_cmap()
+    colours = cmap(norm(np.nan_to_num(values)))
+    colours[lower & ~np.isfinite(values)] = to_rgba(MIST)
+    colours[~lower] = (1.0, 1.0, 1.0, 0.0)
+
+    fig = Figure(figsize=(FULL_WIDTH, side + 0.9), layout="constrained")
+    ax = fig.add_subplot()
+    ax.imshow(colours, interpolation="nearest", extent=(0, m, m, 0), aspect="equal")
+    r, c = np.nonzero(marked & lower & np.isfinite(values))
+    if r.size:
+        dark = np.abs(values[r, c]) >= 0.6  # as the printed values of a small matrix: white on dark colours
+        ax.scatter(c + 0.5, r + 0.5, s=max(0.5, (0.35 * cell_pt) ** 2), marker="o", linewidths=0, rasterized=True,
+                   color=np.where(dark[:, None], to_rgba("white"), to_rgba(INK)))
+    ax.set_xlim(0, m)
+    ax.set_ylim(m, 0)
+    ax.set_xticks(np.arange(m) + 0.5, cols)
+    ax.set_yticks(np.arange(m) + 0.5, rows)
+    ax.tick_params(length=0, labelsize=label_size, pad=1.5)
+    ax.tick_params(axis="x", labelrotation=90)
+    for spine in ax.spines.values():
+        spine.set_visible(False)
+    cbar = fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), ax=ax, shrink=0.6, aspect=25, pad=0.02)
+    cbar.set_ticks([-1.0, -0.5, 0.0, 0.5, 1.0])
+    cbar.outline.set_visible(False)
+    cbar.ax.tick_params(labelsize=7, length=2, color=SLATE)
+    cbar.set_label("Posterior median ρ", fontsize=7.5)
+    note = [Line2D([], [], linestyle="none", marker="o", markersize=3, color=INK)]
+    ax.legend(note, ["dot: interval excludes 0"], loc="upper right", bbox_to_anchor=(1.0, 1.0), fontsize=7)
     return _to_svg(fig)

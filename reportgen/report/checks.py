@@ -117,8 +117,9 @@ def sensitivity_rows(result: PairResult) -> list[dict[str, Any]]:
     return rows
 
 
-def checks_context(result: PairResult) -> dict[str, Any]:
-    """Everything of one pair's model checks that its page shows."""
+def checks_context(result: PairResult, *, with_figure: bool = True) -> dict[str, Any]:
+    """Everything of one pair's model checks that its page shows; without ``with_figure`` (the compact layout,
+    which does not show it) the distance figure is not drawn."""
     checks, choice, sensitivity = result.checks, result.choice, result.sensitivity
     others = []
     if choice is not None:
@@ -140,7 +141,7 @@ def checks_context(result: PairResult) -> dict[str, Any]:
         "warnings": [{"title": WARNING_TITLES.get(w.code, w.code), "sentence": w.sentence}
                      for w in (checks.warnings if checks is not None else ())],
         "rows": check_rows(result),
-        "distance_figure": distance_figure(result),
+        "distance_figure": distance_figure(result) if with_figure else "",
         "sensitivity_rows": sensitivity_rows(result),
         "sensitivity_sentence": (
             "The spec sets no decision rules, so the table shows how the median and interval of \u03c1 move."
@@ -162,5 +163,6 @@ def run_checks_context(results: RunResults, anchor_of: Callable[[str], str]) -> 
         lead = ""
         if pair.choice is not None and pair.choice.leading != "normal" and pair.choice.requested == "auto":
             lead = f"; the {MODEL_NAMES[pair.choice.leading]} fit leads"
-        listed.append({"title": pair.title, "anchor": anchor_of(pair.key), "warnings": interpret.joined(titles) + lead})
+        listed.append({"key": pair.key, "title": pair.title, "anchor": anchor_of(pair.key),
+                       "warnings": interpret.joined(titles) + lead})
     return listed

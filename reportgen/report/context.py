@@ -15,12 +15,14 @@ import numpy as np
 
 from reportgen import figures, interpret, narrative
 from reportgen.data import PairData
+from reportgen.report import selection
 from reportgen.report.changes import long_date, since_previous_context
 from reportgen.report.checks import checks_context, highlighted_rows, run_checks_context
 from reportgen.report.groups import adjustment_context, groups_context, page_one_notes, summary_row_note
 from reportgen.report.render import drawn_figure as _drawn
 from reportgen.report.render import logo_data_uri, svg_data_uri
 from reportgen.results import PairResult, RunResults, decisions
+from reportgen.results.choice import MODEL_SHORT_NAMES
 from reportgen.spec import Spec
 
 if TYPE_CHECKING:
@@ -108,6 +110,22 @@ def pair_figures(result: PairResult, data: PairData, spec: Spec) -> dict[str, An
     }
 
 
+def page_context(result: PairResult, data: PairData, spec: Spec, compact: bool) -> dict[str, Any]:
+    """One pair's page: its figures drawn and everything else formatted."""
+    mass = spec.document.summary.credible_mass
+    return pair_context(result, pair_figures(result, data, spec), mass, spec, compact=compact)
+
+
+def pages_for(results: list[PairResult], pair_data: dict[str, PairData], spec: Spec,
+              compact: bool) -> list[dict[str, Any]]:
+    """The paged pairs' pages, in the order of ``results``.
+
+    Drawn in this process: two worker processes (spawned, each importing matplotlib) were measured slower
+    than one process for 21 pages on 2 cores (DEVELOPERS.md, Performance).
+    """
+    return [page_context(result, pair_data[result.key], spec, compact) for result in results]
+
+
 def matrix_figures(results: RunResults, spec: Spec) -> list[dict[str, str]]:
     out = []
     shown = {pair.key: pair.pair_sets for pair in spec.pairs}  # a listed pair can also stand in a set's matrix
@@ -125,7 +143,9 @@ def matrix_figures(results: RunResults, spec: Spec) -> list[dict[str, str]]:
             excludes[i, j] = result.interval_excludes_zero
         labels = [spec.display_name(c) for c in columns]
         svg = figures.correlation_matrix(labels, medians, excludes)
-        out.append({"name": pair_set.name, "figure": svg_data_uri(svg)})
+        marks = "Outlined cells" if figures.matrix_shows_values(k) else "Cells with a dot"
+        out.append({"name": pair_set.name, "figure": svg_data_uri(svg), "marks": marks,
+                    "dense": not figures.matrix_shows_values(k)})
     return out
 
 
@@ -137,7 +157,8 @@ def _rho(value: float) -> str:
     return interpret.format_rho(value)
 
 
-def pair_context(result: PairResult, figs: dict[str, str], mass: float, spec: Spec | None = None) -> dict[str, Any]:
+def pair_context(result: PairResult, figs: dict[str, str], mass: float, spec: Spec | None = None, *,
+                 compact: bool = False) -> dict[str, Any]:
     rows = []
     diagnostics = {p.name: p for p in result.diagnosis.parameters}
     for name, summary in result.parameters.items():
@@ -210,7 +231,7 @@ def pair_context(result: PairResult, figs: dict[str, str], mass: float, spec: Sp
         "seed": "\u2014" if result.seed is None else str(result.seed),
         "figures": figs,
         "model": result.model,
-        "checks": checks_context(result),
+        "checks": checks_context(result, with_figure=not compact),
         "groups": groups_context(result, spec.display_name(result.groups.column) if spec and result.groups
                                  else "group", mass),
         "adjustment": adjustment_context(result),
@@ -351,6 +372,58 @@ def document_meta(spec: Spec) -> dict[str, str]:
     }
 
 
+def summary_row(result: PairResult, spec: Spec) -> dict[str, Any]:
+    """One row of page one's table, from the pair's results alone (no figure is drawn for it)."""
+    bf_kind, bf_value = interpret.bayes_factor_parts(result.crosscheck.log_bf10)
+    return {
+        "anchor": _anchor(result.key), "title": result.title, "n": f"{result.n:,}",
+        "median": _rho(result.rho.median), "interval": f"{_rho(result.rho.lower)} to {_rho(result.rho.upper)}",
+        "p_positive": interpret.format_probability(result.p_positive), "rules": rule_cells(result),
+        "status": result.status, "sampler_checks": sampler_checks(result),
+        "bf10": interpret.bayes_factor_cell(result.crosscheck.log_bf10),
+        # the value above its kind (BF10 or BF01), so that a narrow column holds both
+        "bf_kind": bf_kind, "bf_value": bf_value,
+        "model": MODEL_SHORT_NAMES[result.model],
+        "grouped": summary_row_note(result, spec.display_name(result.groups.column) if result.groups else ""),
+        "simpson": bool(result.groups and result.groups.simpson),
+    }
+
+
+def _strongest_in_order(results: list[PairResult], limit: int) -> list[PairResult]:
+    """At most ``limit`` of ``results``: the strongest, kept in the run's order."""
+    if len(results) <= limit:
+        return results
+    kept = {id(result) for result in selection.ranked_by_strength(results)[:limit]}
+    return [result for result in results if id(result) in kept]
+
+
+def page_one_lists(results: RunResults, paged: frozenset[str]) -> dict[str, Any]:
+    """Page one's lists of pairs (model warnings, borderline verdicts, Simpson's warnings, adjusted pairs),
+    each cut to ``selection.MAX_LISTED`` items with a line saying how many more there are."""
+    where = "results.csv and results.parquet list every pair"
+    warnings, more_warnings = selection.capped(run_checks_context(results, _anchor), paged)
+    borderline = [{"key": result.key, "anchor": _anchor(result.key), "title": result.title, "rule": rule.name,
+                   "probability": interpret.format_probability(rule.probability),
+                   "required": interpret.format_required(rule.required), "mcse": f"{rule.mcse:.3f}"}
+                  for result in results.pairs for rule in result.rules if rule.borderline and result.status != "fail"]
+    borderline, more_borderline = selection.capped(borderline, paged)
+    notes = page_one_notes(results.pairs, _anchor)
+    simpson, more_simpson = selection.capped(notes["simpson"], paged)
+    adjusted, more_adjusted = selection.capped(notes["adjusted"], paged)
+    return {
+        "model_warnings": warnings,
+        "model_warnings_total": len(warnings) + more_warnings,
+        "model_warnings_more": selection.more_sentence(more_warnings, "are flagged",
+                                                       "see the column model_warnings of results.csv"),
+        "borderline": borderline,
+        "borderline_more": selection.more_sentence(more_borderline, "have a borderline verdict",
+                                                   "see the column borderline_rules of results.csv"),
+        "grouped": {"simpson": simpson, "adjusted": adjusted,
+                    "simpson_more": selection.more_sentence(more_simpson, "have Simpson's warning", where),
+                    "adjusted_more": selection.more_sentence(more_adjusted, "are adjusted", where)},
+    }
+
+
 def build_context(
     spec: Spec,
     results: RunResults,
@@ -359,30 +432,42 @@ def build_context(
     comparison: Comparison | None = None,
 ) -> dict[str, Any]:
     """The run report's context; with ``comparison`` (against the previous run) it also holds
-    ``since_previous``: the flips for page one and the section after the summary (None without)."""
+    ``since_previous``: the flips for page one and the section after the summary (None without).
+
+    Only the pairs ``[report] pair_pages`` selects get a page and its figures (see ``report.selection``);
+    page one's tables and lists are capped so that it stays short at thousands of pairs.
+    """
     document = spec.document
     mass = document.summary.credible_mass
-    pairs = []
-    for result in results.pairs:
-        figs = pair_figures(result, pair_data[result.key], spec)
-        pairs.append(pair_context(result, figs, mass, spec))
+    compact = getattr(document.report, "layout", "full") == "compact"
+    chosen = selection.select_pair_pages(results.pairs, getattr(document.report, "pair_pages", None))
+    paged = frozenset(chosen.keys)
+    paged_results = [result for result in results.pairs if result.key in paged]
+    pairs = pages_for(paged_results, pair_data, spec, compact)
     thresholds = sorted({t for rule in document.rules for t in rule.thresholds})
+    in_table = _strongest_in_order(paged_results, selection.MAX_SUMMARY_ROWS)
+    in_forest = _strongest_in_order(in_table, selection.MAX_FOREST_ROWS)
     forest = figures.forest_plot(
-        [p.title for p in results.pairs],
-        [p.rho.median for p in results.pairs],
-        [p.rho.lower for p in results.pairs],
-        [p.rho.upper for p in results.pairs],
-        statuses=[p.status for p in results.pairs],
-        sample_r=[p.reference.r for p in results.pairs],
+        [p.title for p in in_forest],
+        [p.rho.median for p in in_forest],
+        [p.rho.lower for p in in_forest],
+        [p.rho.upper for p in in_forest],
+        statuses=[p.status for p in in_forest],
+        sample_r=[p.reference.r for p in in_forest],
         thresholds=thresholds,
         rope=(document.rope.lower, document.rope.upper),
         mass=mass,
-    )
+    ) if in_forest else ""
     methods = narrative.methods_context(spec, results)
     failed = results.failed
     warned = [p for p in results.pairs if p.status == "warn"]
-    titles = {result.key: (result.title, p["anchor"]) for result, p in zip(results.pairs, pairs, strict=True)}
+    titles = {result.key: (result.title, _anchor(result.key) if result.key in paged else "")
+              for result in results.pairs}
     draft = bool(getattr(document.report, "draft", False))
+    ranked, meeting = selection.ranked_rule_rows(results.pairs, paged, _anchor)
+    record_pairs = [{**row, "pair": titles.get(row["pair"], (row["pair"], ""))[0]}
+                    for row in narrative.record_pair_rows(record["reproducible"]) if row["pair"] in paged]
+    record_shown = record_pairs[:selection.MAX_RECORD_ROWS]
     return {
         "meta": document_meta(spec),
         "draft": draft,
@@ -392,10 +477,11 @@ def build_context(
             rhat_max=document.diagnostics.rhat_max) if draft else "",
         "footer": document.report.client or document.report.title,
         "contents": contents_entries(results, pairs, comparison is not None),
-        "compact": getattr(document.report, "layout", "full") == "compact",
+        "compact": compact,
         "banner": narrative.status_banner(len(results.pairs), [p.title for p in failed],
                                           [p.title for p in warned], engine=document.engine),
         "status": results.status,
+        "pages_sentence": selection.selection_sentence(chosen),
         "mass": f"{mass:.0%}",
         "interval_name": "highest-density interval" if document.summary.interval == "hdi"
         else "equal-tailed credible interval",
@@ -411,29 +497,21 @@ def build_context(
             "description": rule.description or rule.name.replace("_", " "),
         } for rule in document.rules],
         "rope": " to ".join(interpret.format_threshold(v) for v in (document.rope.lower, document.rope.upper)),
-        "summary_rows": [{
-            "anchor": p["anchor"], "title": p["title"], "n": p["n"], "median": p["median"],
-            "interval": p["interval"], "p_positive": p["p_positive"], "rules": p["rules"],
-            "status": p["status"], "sampler_checks": p["sampler_checks"], "bf10": p["bf10"],
-            # the value above its kind (BF10 or BF01), so that a narrow column holds both
-            "bf_kind": p["bf_parts"][0], "bf_value": p["bf_parts"][1],
-            "model": p["checks"]["model_short"],
-            "grouped": summary_row_note(result, spec.display_name(result.groups.column) if result.groups else ""),
-            "simpson": bool(result.groups and result.groups.simpson),
-        } for result, p in zip(results.pairs, pairs, strict=True)],
-        "model_warnings": run_checks_context(results, _anchor),
-        "grouped": page_one_notes(results.pairs, _anchor),
+        "summary_rows": [summary_row(result, spec) for result in in_table],
+        "summary_more": "" if len(in_table) == len(paged_results) else (
+            f"The table shows the {len(in_table):,} strongest of the {len(paged_results):,} pairs with a page; "
+            "each page is listed in the contents."),
+        "forest_note": "" if len(in_forest) == len(in_table) else (
+            f"The {len(in_forest):,} strongest pairs of the table."),
+        "ranked": ranked,
+        "ranked_note": selection.ranked_note(len(ranked), meeting, len(results.pairs)),
+        **page_one_lists(results, paged),
         "prior_sensitive": [p.title for p in results.pairs if p.sensitivity and p.sensitivity.prior_sensitive],
-        "borderline": [{"anchor": p["anchor"], "title": result.title, "rule": rule.name,
-                        "probability": interpret.format_probability(rule.probability),
-                        "required": interpret.format_required(rule.required), "mcse": f"{rule.mcse:.3f}"}
-                       for result, p in zip(results.pairs, pairs, strict=True) for rule in result.rules
-                       if rule.borderline and result.status != "fail"],
         # a failed fit's verdicts are not judged, so they do not count among the decisions read together
         "many_decisions": decisions.many_decisions_sentence(decisions.many_decisions(
             [(rule.probability, rule.verdict == "met") for result in results.pairs if result.status != "fail"
              for rule in result.rules])),
-        "forest": svg_data_uri(forest),
+        "forest": svg_data_uri(forest) if forest else "",
         "matrices": matrix_figures(results, spec),
         "pairs": pairs,
         "methods": methods,
@@ -444,15 +522,26 @@ def build_context(
         )),
         "cautions": narrative.cautions(),
         "record_rows": narrative.record_rows(record["reproducible"]),
-        "record_pairs": [{**row, "pair": titles.get(row["pair"], (row["pair"], ""))[0]}
-                         for row in narrative.record_pair_rows(record["reproducible"])],
+        "record_pairs": record_shown,
+        "record_pairs_note": "" if len(record_shown) == len(results.pairs) else (
+            f"This table lists {len(record_shown):,} of the {len(results.pairs):,} pairs (pairs with a page"
+            f"{'' if len(record_shown) == len(record_pairs) else ', in the order of the contents'}); record.json "
+            f"beside this report holds the entries of all {len(results.pairs):,}."),
         "versions": record["reproducible"]["versions"],
         "spec_text": spec_without_comments(spec.source_text),
         "spec_note": ("The spec file with its comment lines left out; its SHA-256 above is that of the file as "
                       "written. Command-line overrides, if any, are listed in the table above and replace these "
                       "values."),
         "record_json": json.dumps(record["reproducible"], indent=2, ensure_ascii=False),
-        "since_previous": None if comparison is None else since_previous_context(comparison, titles),
+        "since_previous": None if comparison is None else capped_changes(since_previous_context(comparison, titles)),
     }
 
 
+def capped_changes(block: dict[str, Any]) -> dict[str, Any]:
+    """The section on the previous run with at most ``selection.MAX_CHANGE_ROWS`` rows (flips and changed
+    checks come first), and a line saying how many more are in changes.csv."""
+    rows = block["rows"]
+    left_out = max(0, len(rows) - selection.MAX_CHANGE_ROWS)
+    return {**block, "rows": rows[:selection.MAX_CHANGE_ROWS],
+            "rows_left_out": selection.more_sentence(left_out, "are compared",
+                                                     "changes.csv beside this report has every pair")}

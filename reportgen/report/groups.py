@@ -136,9 +136,9 @@ def adjustment_context(result: PairResult) -> dict[str, Any] | None:
 
 def page_one_notes(results: tuple[PairResult, ...], anchor: Any) -> dict[str, list[dict[str, str]]]:
     """Simpson's warnings and the adjusted correlations, for page one."""
-    simpson = [{"anchor": anchor(r.key), "title": r.title, "sentence": r.groups.simpson_sentence}
+    simpson = [{"key": r.key, "anchor": anchor(r.key), "title": r.title, "sentence": r.groups.simpson_sentence}
                for r in results if r.groups is not None and r.groups.simpson]
-    adjusted = [{"anchor": anchor(r.key), "title": r.title, "sentence": r.adjustment.sentence}
+    adjusted = [{"key": r.key, "anchor": anchor(r.key), "title": r.title, "sentence": r.adjustment.sentence}
                 for r in results if r.adjustment is not None]
     return {"simpson": simpson, "adjusted": adjusted}
 

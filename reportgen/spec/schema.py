@@ -8,6 +8,7 @@ that is silently ignored changes a report without anyone noticing.
 from __future__ import annotations
 
 import datetime as dt
+import difflib
 import math
 import re
 import typing
@@ -189,6 +190,13 @@ class _Strict(_Frozen):
         return value
 
 
+# [report] pair_pages: the words it takes besides a whole number, and the number of pages a report has when
+# the spec leaves it out (every pair up to this many pairs, else this many of the strongest).
+PAIR_PAGES_WORDS = ("all", "rules_met")
+DEFAULT_PAIR_PAGES = 30
+PairPages = Literal["all", "rules_met"] | int
+
+
 class ReportMeta(_Strict):
     title: Annotated[str, Field(min_length=1, max_length=MAX_LINE_TEXT)]
     subtitle: Annotated[str, Field(max_length=MAX_SUBTITLE_TEXT)] = ""
@@ -203,6 +211,34 @@ class ReportMeta(_Strict):
     draft: bool = False
     # "full": every figure and table of each pair; "compact": each pair on about one page
     layout: Literal["full", "compact"] = "full"
+    # which pairs get a page of their own: "all", "rules_met" (pairs that meet a decision rule) or N (the N
+    # strongest by |posterior median rho|); left out: every pair up to DEFAULT_PAIR_PAGES pairs, else the
+    # DEFAULT_PAIR_PAGES strongest. Every pair is in results.csv and results.parquet whatever this says.
+    pair_pages: PairPages | None = None
+
+    @field_validator("pair_pages", mode="before")
+    @classmethod
+    def _pair_pages_setting(cls, value: Any) -> Any:
+        if value is None:
+            return value
+        if isinstance(value, str):
+            if value in PAIR_PAGES_WORDS:
+                return value
+            close = difflib.get_close_matches(value.strip().lower(), PAIR_PAGES_WORDS, n=1, cutoff=0.5)
+            hint = f"; did you mean \"{close[0]}\"?" if close else ""
+            number = _as_number_text(value)
+            fix = f"; write the number without quotes: {number}" if number is not None else hint
+            raise ValueError(f"should be \"all\", \"rules_met\" or a whole number of pairs of at least 1, "
+                             f"got {_toml_literal(value)}{fix}")
+        if isinstance(value, float) and math.isfinite(value) and value.is_integer():
+            return value  # refused by _Strict as every whole-number field refuses 1000.0, with the same words
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise ValueError(f"should be \"all\", \"rules_met\" or a whole number of pairs of at least 1, "
+                             f"got {_toml_literal(value)}")
+        if value < 1:
+            raise ValueError(f"should be at least 1 (the number of pairs that get a page of their own), got {value}; "
+                             "use \"rules_met\" for only the pairs that meet a rule")
+        return value
 
 
 class DataSource(_Strict):
@@ -314,7 +350,8 @@ class PairEntry(_Strict):
 
 class PairSet(_Strict):
     name: Annotated[str, Field(min_length=1, max_length=MAX_LINE_TEXT)]
-    columns: Annotated[tuple[ColumnName, ...], Field(min_length=2, max_length=40)]
+    # up to 100 columns (4,950 pairs): above 21 columns the matrix is drawn as a heat map without numbers
+    columns: Annotated[tuple[ColumnName, ...], Field(min_length=2, max_length=100)]
     model: ModelName | None = None
     priors: PriorOverrides = PriorOverrides()
     group_by: GroupColumn | None = None
