@@ -63,6 +63,8 @@ def run_once(spec: Path, out: Path, executor: list[str]) -> dict:
     lines = done.stdout.strip().splitlines()
     if not lines or not lines[-1].startswith("{"):
         raise SystemExit(f"run failed: {done.stderr[-2000:]}")
+    if not (out / "record.json").is_file():
+        raise SystemExit(f"the run wrote no outputs (exit {done.returncode}): {done.stderr.strip()[-2000:]}")
     record = json.loads((out / "record.json").read_text(encoding="utf-8"))
     from pypdf import PdfReader
 
