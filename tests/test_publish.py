@@ -419,9 +419,12 @@ def test_run_log_is_json_lines_with_the_four_keys(previous: tuple) -> None:
     lines = [json.loads(line) for line in (out / "run.log").read_text(encoding="utf-8").splitlines()]
     assert all({"time", "level", "pair", "event"} <= set(line) for line in lines)
     events = [line["event"] for line in lines]
-    assert events[:2] == ["start", "data loaded"] and events[-2:] == ["rendering", "outputs written"]
+    assert events[:2] == ["start", "data loaded"] and events[-3:] == ["rendering", "timings", "outputs written"]
     (pair,) = [line for line in lines if line["event"] == "pair done"]
     assert pair["pair"] == "alpha vs b" and pair["status"] == "pass" and pair["seconds"] >= 0
+    (timings,) = [line for line in lines if line["event"] == "timings"]
+    stages = ("loading", "fitting and summarising", "figures and report sections", "HTML", "PDF")
+    assert all(timings[stage] >= 0 for stage in stages)
     assert all(dt.datetime.fromisoformat(line["time"]).tzinfo is not None for line in lines)
 
 
