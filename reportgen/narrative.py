@@ -38,12 +38,12 @@ def status_banner(total: int, failed: list[str], warned: list[str], *, engine: s
     if failed:
         names = "; ".join(failed)
         return {"level": "fail", "text": (
-            f"{len(failed)} of {total} pair{plural} failed the sampler checks ({names}). Their numbers are "
+            f"{len(failed):,} of {total:,} pair{plural} failed the sampler checks ({names}). Their numbers are "
             "shown but their verdicts are not judged: do not rely on them until the pairs are re-run.")}
     if engine == "exact" and not warned:
         return {"level": "pass", "text": (
-            f"{'All ' if total != 1 else 'The '}{total if total != 1 else ''}{' ' if total != 1 else ''}pair{plural} "
-            f"{'were' if total != 1 else 'was'} computed by quadrature with the exact engine. No sampler ran, so "
+            f"{f'All {total:,} pairs were' if total != 1 else 'The pair was'} computed by quadrature with the "
+            "exact engine. No sampler ran, so "
             "the sampler checks do not apply.")}
     if warned:
         names = "; ".join(warned)
