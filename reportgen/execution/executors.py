@@ -171,11 +171,13 @@ class ProcessPairs:
     def _pool(self, workers: int) -> ProcessPoolExecutor:
         return ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
                                    initializer=start_process_worker,
-                                   initargs=(self.root, self.settings.cores or 1, self.setup))
+                                   initargs=(self.root, self.settings.cores or 1, self.setup, self.spec))
 
     def _submit(self, pool: ProcessPoolExecutor, index: int) -> Future[PairWork]:
+        # the spec went to each worker once, when it started: sent with every pair, pickling it (hundreds of
+        # kB with thousands of pairs) cost as much as the pair's own work
         marker = str(self.markers / f"pair-{index}")
-        return pool.submit(fit_in_process, self.settings, self.spec, self.pairs[index], marker)
+        return pool.submit(fit_in_process, self.settings, self.pairs[index], marker)
 
     def results(self) -> Iterator[PairWork]:
         with tempfile.TemporaryDirectory(prefix="reportgen-workers-") as markers:

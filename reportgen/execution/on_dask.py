@@ -85,7 +85,9 @@ def _results(client: Any, spec: Spec, pairs: Sequence[PairData], settings: Fitte
     futures: list[Any] = []
     try:
         run_id = uuid.uuid4().hex[:12]
-        futures = [client.submit(fit_on_dask_worker, settings, threads, spec, pair, pure=False,
+        # sent to every worker once and kept there, not serialised again with each pair
+        shared_spec = client.scatter(spec, broadcast=True, hash=False)
+        futures = [client.submit(fit_on_dask_worker, settings, threads, shared_spec, pair, pure=False,
                                  key=f"reportgen-{run_id}-pair-{index}") for index, pair in enumerate(pairs)]
         for future, pair in zip(futures, pairs, strict=True):
             try:

@@ -47,6 +47,7 @@ _CLAIM_LOCK = threading.Lock()
 # A dask worker may run several tasks at once on threads, but PyTensor's compiler is not thread-safe and
 # nutpie starts threads of its own: one pair at a time per worker process.
 _WORK_LOCK = threading.Lock()
+_RUN_SPEC: list[Spec] = []  # the spec a local worker process was started with
 
 
 def cache_root() -> Path:
@@ -110,9 +111,12 @@ def limit_threads(threads: int) -> None:
         threadpool_limits(threads)
 
 
-def start_process_worker(root: str | None, threads: int, setup: Callable[[], None] | None = None) -> None:
-    """Initialiser of a local worker process. Ctrl-C at a terminal reaches every process of the group:
-    the worker ignores it and the runner, which sees it too, stops the workers itself."""
+def start_process_worker(root: str | None, threads: int, setup: Callable[[], None] | None = None,
+                         spec: Spec | None = None) -> None:
+    """Initialiser of a local worker process, given the run's spec once for all its pairs. Ctrl-C at a
+    terminal reaches every process of the group: the worker ignores it and the runner, which sees it too,
+    stops the workers itself."""
+    _RUN_SPEC[:] = [spec] if spec is not None else []
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     limit_threads(threads)
     claim_cache_folder(Path(root) if root else None)
@@ -134,10 +138,14 @@ def worker_name() -> str:
     return f"{socket.gethostname()}:{os.getpid()}"
 
 
-def fit_in_process(settings: FitterSettings, spec: Spec, pair: PairData, marker: str | None = None) -> PairWork:
-    """One pair's work in a local worker process. ``marker`` is a file that exists while the pair is being
-    fitted: if the process dies, the runner knows which pair it was working on."""
+def fit_in_process(settings: FitterSettings, pair: PairData, marker: str | None = None,
+                   spec: Spec | None = None) -> PairWork:
+    """One pair's work in a local worker process, under ``spec`` or else the spec the worker started with.
+    ``marker`` is a file that exists while the pair is being fitted: if the process dies, the runner knows
+    which pair it was working on."""
     from reportgen.execution.work import work_on_pair
+
+    spec = spec if spec is not None else _RUN_SPEC[0]
 
     if marker is None:
         return work_on_pair(spec, pair, worker_fitter(settings))
