@@ -13,35 +13,13 @@ import time
 import warnings
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
+from synthetic import write_project
 
 warnings.filterwarnings("ignore")
 
 
 def make_project(folder: Path, columns: int, rows: int) -> Path:
-    rng = np.random.default_rng(0)
-    latent = rng.normal(size=(rows, 3))
-    loadings = rng.normal(size=(3, columns))
-    frame = pd.DataFrame(latent @ loadings + rng.normal(size=(rows, columns)),
-                         columns=[f"v{i:02d}" for i in range(columns)])
-    frame.to_csv(folder / "data.csv", index=False)
-    names = ", ".join(f'"{c}"' for c in frame.columns)
-    (folder / "spec.toml").write_text(f"""
-[report]
-title = "Benchmark"
-date = 2026-01-01
-[data]
-path = "data.csv"
-[[pair_sets]]
-name = "all"
-columns = [{names}]
-[sampler]
-draws = 1000
-tune = 1000
-chains = 4
-""", encoding="utf-8")
-    return folder / "spec.toml"
+    return write_project(folder, columns, rows, tail="[sampler]\ndraws = 1000\ntune = 1000\nchains = 4\n")
 
 
 def timed_run(spec_path: Path, out: Path, engine: str) -> tuple[float, float, int]:

@@ -30,34 +30,14 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-import pandas as pd
+from synthetic import write_project
 
 warnings.filterwarnings("ignore")
 
 TARGET_SECONDS_PER_PAIR = 0.3
 
 
-def make_project(folder: Path, columns: int, rows: int, pair_pages: str) -> Path:
-    rng = np.random.default_rng(0)
-    latent = rng.normal(size=(rows, 3))
-    loadings = rng.normal(size=(3, columns))
-    frame = pd.DataFrame(latent @ loadings + rng.normal(size=(rows, columns)) * 2.0,
-                         columns=[f"v{i:03d}" for i in range(columns)])
-    frame.to_csv(folder / "data.csv", index=False)
-    names = ", ".join(f'"{c}"' for c in frame.columns)
-    (folder / "spec.toml").write_text(f"""
-engine = "exact"
-[report]
-title = "Benchmark"
-date = 2026-01-01
-{pair_pages}
-[data]
-path = "data.csv"
-[[pair_sets]]
-name = "all"
-columns = [{names}]
-[[rules]]
+RULES = """[[rules]]
 name = "clearly_positive"
 statement = "above"
 threshold = 0.1
@@ -65,8 +45,12 @@ threshold = 0.1
 name = "clearly_negative"
 statement = "below"
 threshold = -0.1
-""", encoding="utf-8")
-    return folder / "spec.toml"
+"""
+
+
+def make_project(folder: Path, columns: int, rows: int, pair_pages: str) -> Path:
+    return write_project(folder, columns, rows, top='engine = "exact"', report=pair_pages, tail=RULES, noise=2.0,
+                         name_width=3)
 
 
 class StageClock:

@@ -23,8 +23,7 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
+from synthetic import write_project
 
 CHILD = r"""
 import json, resource, sys
@@ -40,19 +39,7 @@ print(json.dumps({"peak_mib": max(own, workers) / 1024.0}))
 
 
 def make_project(folder: Path, columns: int, rows: int, engine: str) -> Path:
-    """A table whose columns share three latent factors (so correlations of every strength occur)."""
-    folder.mkdir(parents=True, exist_ok=True)
-    rng = np.random.default_rng(0)
-    latent = rng.normal(size=(rows, 3))
-    loadings = rng.normal(size=(3, columns))
-    frame = pd.DataFrame(latent @ loadings + rng.normal(size=(rows, columns)),
-                         columns=[f"v{i:03d}" for i in range(columns)])
-    frame.to_csv(folder / "data.csv", index=False)
-    names = ", ".join(f'"{c}"' for c in frame.columns)
-    (folder / "spec.toml").write_text(
-        f'engine = "{engine}"\n\n[report]\ntitle = "Scale benchmark"\ndate = 2026-01-01\n\n'
-        f'[data]\npath = "data.csv"\n\n[[pair_sets]]\nname = "all"\ncolumns = [{names}]\n', encoding="utf-8")
-    return folder / "spec.toml"
+    return write_project(folder, columns, rows, top=f'engine = "{engine}"', name_width=3)
 
 
 def run_once(spec: Path, out: Path, executor: list[str]) -> dict:
