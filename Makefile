@@ -40,6 +40,7 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_executors.py
 	$(BIN)/python benchmarks/bench_csv.py
 	$(BIN)/python benchmarks/bench_rows.py
+	$(BIN)/python benchmarks/bench_loading.py
 	$(BIN)/python benchmarks/bench_scale.py
 
 sbc: $(STAMP)

@@ -45,7 +45,9 @@ from reportgen.data.sums import (
     PERFECT_CORRELATION,
     PERFECT_CORRELATION_COMPLEMENT,
     SufficientStats,
+    centred,
     sufficient_stats,
+    sums_of_centred,
 )
 from reportgen.errors import DataError
 from reportgen.io.common import nfc, nfc_lookup, no_rows
@@ -56,8 +58,8 @@ from reportgen.spec import PairSpec, Spec
 
 __all__ = ["MIN_COMPLETE_ROWS", "ControlData", "GroupData",
            "PERFECT_CORRELATION", "PERFECT_CORRELATION_COMPLEMENT", "PairData", "ParsedColumn",
-           "SheetProblem", "SufficientStats", "Table", "file_sha256", "load_pairs", "load_table", "pair_data",
-           "sufficient_stats"]
+           "SheetProblem", "SufficientStats", "Table", "TableColumns", "file_sha256", "load_pairs", "load_table",
+           "pair_data", "sufficient_stats"]
 
 MIN_COMPLETE_ROWS = 4
 EXCEL_SUFFIXES = {".xlsx", ".xlsm", ".xls"}
@@ -317,21 +319,106 @@ def _numeric_column(table: Table, column: str) -> np.ndarray:
     return values
 
 
-def pair_data(table: Table, pair: PairSpec, missing_policy: str) -> PairData:
-    """Complete rows of one pair, checked for what cannot be fitted."""
-    x_all = _numeric_column(table, pair.x)
-    y_all = _numeric_column(table, pair.y)
+@dataclass(frozen=True)
+class CentredColumn:
+    """A column's present values centred once (``sums.centred``), with their sum of squares, for every pair
+    whose complete rows are all the column's present rows."""
+
+    mean: float
+    deviations: np.ndarray
+    squares: float  # deviations @ deviations
+
+
+class TableColumns:
+    """The table's columns as one pair needs them, each parsed, checked and centred once however many pairs
+    name it: in an all-pairs set of 100 columns each column is in 99 pairs, and parsing it again for each
+    cost most of the loading. Errors are raised when a pair first needs the column, as without the cache."""
+
+    def __init__(self, table: Table) -> None:
+        self.table = table
+        self._values: dict[str, np.ndarray] = {}
+        self._missing: dict[str, np.ndarray] = {}
+        self._present: dict[str, int] = {}
+        self._centred: dict[str, CentredColumn] = {}
+        self._labels: dict[str, np.ndarray] = {}
+        self._rows: np.ndarray | None = None
+
+    def values(self, column: str) -> np.ndarray:
+        """The column (as the spec names it) as floats, NaN where a cell is missing; the arrays are shared
+        between pairs, so they are read, never written."""
+        if column not in self._values:
+            self._values[column] = _numeric_column(self.table, column)
+        return self._values[column]
+
+    def missing(self, column: str) -> np.ndarray:
+        if column not in self._missing:
+            self._missing[column] = np.isnan(self.values(column))
+        return self._missing[column]
+
+    def present(self, column: str) -> int:
+        """How many of the column's cells hold a number."""
+        if column not in self._present:
+            self._present[column] = int((~self.missing(column)).sum())
+        return self._present[column]
+
+    def centred(self, column: str) -> CentredColumn:
+        """The column's present values centred as ``sufficient_stats`` centres them, so a pair that keeps all
+        of them gets the same floats without centring again."""
+        if column not in self._centred:
+            with np.errstate(all="ignore"):
+                mean, deviations = centred(self.values(column)[~self.missing(column)])
+                squares = float(deviations @ deviations)
+            self._centred[column] = CentredColumn(mean=mean, deviations=deviations, squares=squares)
+        return self._centred[column]
+
+    def labels(self, column: str) -> np.ndarray:
+        """Each row's group label in a grouping column (``groups.group_labels``)."""
+        if column not in self._labels:
+            cells = self.table.frame[_data_column(self.table, column)].to_numpy(dtype=object)
+            self._labels[column] = group_labels(cells)
+        return self._labels[column]
+
+    @property
+    def rows(self) -> np.ndarray:
+        """Every row's number in the input file."""
+        if self._rows is None:
+            self._rows = np.asarray(self.table.frame.index, dtype=np.int64)
+        return self._rows
+
+
+def _pair_sums(columns: TableColumns, pair: PairSpec, x: np.ndarray, y: np.ndarray) -> SufficientStats:
+    """``sufficient_stats(x, y)``, taking the centred values of a column whose present rows the pair keeps
+    whole from ``columns`` (the same floats: the same values centred by the same steps)."""
+    with np.errstate(all="ignore"):
+        sides = []
+        for name, values in ((pair.x, x), (pair.y, y)):
+            if values.size == columns.present(name):
+                column = columns.centred(name)
+                sides.append((column.mean, column.deviations, column.squares))
+            else:
+                mean, deviations = centred(values)
+                sides.append((mean, deviations, None))
+        (mean_x, dx, sxx), (mean_y, dy, syy) = sides
+        return sums_of_centred(mean_x, dx, mean_y, dy, sxx=sxx, syy=syy)
+
+
+def pair_data(table: Table, pair: PairSpec, missing_policy: str, columns: TableColumns | None = None) -> PairData:
+    """Complete rows of one pair, checked for what cannot be fitted. ``columns`` (default None: a new one)
+    holds the table's parsed columns, to be shared by every pair of one table."""
+    columns = columns if columns is not None else TableColumns(table)
+    x_all = columns.values(pair.x)
+    y_all = columns.values(pair.y)
     where = f"{table.path}: pair (`{pair.x}`, `{pair.y}`)"
     if _data_column(table, pair.x) == _data_column(table, pair.y):
         raise DataError(f"{where} names one column of the data twice, spelled with different Unicode characters "
                         "(an accent stored as part of its letter or as a separate mark); pair two columns")
     present = {}
     for name, values in ((pair.x, x_all), (pair.y, y_all)):
-        present[name] = int((~np.isnan(values)).sum())
+        present[name] = columns.present(name)
         if present[name] == 0:
             raise DataError(f"{table.path}: column `{name}` is empty: all {values.size} of its cells are blank "
                             "or missing; fill it in or pair another column")
-    complete = ~(np.isnan(x_all) | np.isnan(y_all))
+    complete = ~(columns.missing(pair.x) | columns.missing(pair.y))
     n_dropped = int((~complete).sum())
     if n_dropped and missing_policy == "fail":
         row = table.frame.index[int(np.flatnonzero(~complete)[0])]
@@ -348,8 +435,7 @@ def pair_data(table: Table, pair: PairSpec, missing_policy: str) -> PairData:
         if np.ptp(values) == 0:
             raise DataError(f"{where}: column `{name}` is constant ({values[0]:g} in every complete row), so its "
                             "correlation is undefined; choose another column")
-    with np.errstate(all="ignore"):
-        stats = sufficient_stats(x, y)
+    stats = _pair_sums(columns, pair, x, y)
     for name, values, mean, ss in ((pair.x, x, stats.mean_x, stats.sxx), (pair.y, y, stats.mean_y, stats.syy)):
         if not (np.isfinite(mean) and np.isfinite(ss)):
             raise DataError(f"{where}: column `{name}` has values too large to square (up to "
@@ -363,23 +449,23 @@ def pair_data(table: Table, pair: PairSpec, missing_policy: str) -> PairData:
     if not (np.isfinite(r) and complement > PERFECT_CORRELATION_COMPLEMENT) or abs(r) >= PERFECT_CORRELATION:
         raise DataError(f"{where}: the columns are perfectly correlated (sample r = {r:+.6f}): one is an exact "
                         "linear function of the other, so there is nothing to estimate; pair other columns")
-    rows = np.asarray(table.frame.index, dtype=np.int64)[complete]
+    rows = columns.rows[complete]
     groups = None
     if pair.group_by:
-        cells = table.frame[_data_column(table, pair.group_by)].to_numpy(dtype=object)
-        groups = group_data(x, y, group_labels(cells[complete]), pair.group_by, where)
+        groups = group_data(x, y, columns.labels(pair.group_by)[complete], pair.group_by, where)
     adjustment = None
     if pair.controls:
-        columns = {name: _numeric_column(table, name) for name in pair.controls}
-        adjustment = control_data(x_all, y_all, columns, where, (pair.x, pair.y))
+        controls = {name: columns.values(name) for name in pair.controls}
+        adjustment = control_data(x_all, y_all, controls, where, (pair.x, pair.y))
     return PairData(pair=pair, x=x, y=y, n_rows=table.n_rows, n_dropped=n_dropped, stats=stats, rows=rows,
                     groups=groups, adjustment=adjustment)
 
 
 def load_pairs(spec: Spec, table: Table) -> tuple[PairData, ...]:
-    """Every pair of the spec, validated before anything is fitted."""
+    """Every pair of the spec, validated before anything is fitted; each column is parsed once."""
     policy = spec.document.data.missing
-    pairs = tuple(pair_data(table, pair, policy) for pair in spec.pairs)
+    columns = TableColumns(table)
+    pairs = tuple(pair_data(table, pair, policy, columns) for pair in spec.pairs)
     _check_compared_groups(spec, table, pairs)
     return pairs
 

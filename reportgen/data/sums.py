@@ -10,7 +10,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["PERFECT_CORRELATION", "PERFECT_CORRELATION_COMPLEMENT", "SufficientStats", "centred", "sufficient_stats"]
+__all__ = ["PERFECT_CORRELATION", "PERFECT_CORRELATION_COMPLEMENT", "SufficientStats", "centred", "sufficient_stats",
+           "sums_of_centred"]
 
 # 1 - |r| this small means one column is an exact linear function of the other. The test reads the
 # complement computed from the residuals (SufficientStats.one_minus_abs_r), not the rounded r; the
@@ -73,15 +74,22 @@ def sufficient_stats(x: np.ndarray, y: np.ndarray) -> SufficientStats:
     sum of squares of y on x from a further pass, so that ``1 - |r|`` keeps its digits near 1."""
     mean_x, dx = centred(x)
     mean_y, dy = centred(y)
-    sxx = float(dx @ dx)
+    return sums_of_centred(mean_x, dx, mean_y, dy)
+
+
+def sums_of_centred(mean_x: float, dx: np.ndarray, mean_y: float, dy: np.ndarray, *, sxx: float | None = None,
+                    syy: float | None = None) -> SufficientStats:
+    """``sufficient_stats`` from columns already centred by ``centred``; ``sxx`` and ``syy`` may be given
+    when known (``dx @ dx``, ``dy @ dy``), so a column shared by many pairs is centred and squared once."""
+    sxx = float(dx @ dx) if sxx is None else sxx
     sxy = float(dx @ dy)
     residual = dy - (sxy / sxx) * dx if sxx > 0.0 else dy
     return SufficientStats(
-        n=int(x.size),
+        n=int(dx.size),
         mean_x=mean_x,
         mean_y=mean_y,
         sxx=sxx,
-        syy=float(dy @ dy),
+        syy=float(dy @ dy) if syy is None else syy,
         sxy=sxy,
         rss=float(residual @ residual),
     )

@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 from pydantic import ValidationError
 
-from reportgen.data import SufficientStats, load_table, pair_data, sufficient_stats
+from reportgen.data import SufficientStats, TableColumns, load_table, pair_data, sufficient_stats
 from reportgen.difference import Posterior, posterior_from_draws, posterior_from_stats
 from reportgen.errors import OutputError, ReportgenError
 from reportgen.exact import MIN_PAIRS
@@ -214,11 +214,12 @@ def period_posteriors(new: RunSnapshot, new_data: Path, old_rows: int) -> dict[s
         return {}
     first_added = int(table.frame.index[old_rows])  # rows carry their line (or row) number in the file
     out = {}
+    columns = TableColumns(table)  # each column parsed once, however many pairs name it
     for pair in spec.pairs:
         if pair.key not in new.pairs:
             continue
         try:
-            rows = pair_data(table, pair, document.data.missing)
+            rows = pair_data(table, pair, document.data.missing, columns)
         except ReportgenError:
             continue
         earlier = rows.row_numbers < first_added

@@ -135,7 +135,7 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
     keys: dict[str, tuple[str, str, str]] = {}
     prefix = f"{source}: " if source is not None else ""
 
-    def add(x: str, y: str, label: str, overrides: PriorOverrides, where: str, pair_set: str,
+    def add(x: str, y: str, label: str, priors: Priors, where: str, pair_set: str,
             model: str | None, entry: PairEntry | PairSet | None) -> None:
         if x == y:
             raise SpecError(f"{prefix}`{where}`: a pair needs two different columns, got `{x}` as both "
@@ -152,8 +152,7 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
             raise SpecError(f"{prefix}`{where}`: the pair ({x}, {y}) is already listed at `{seen[identity]}`; "
                             "remove one of them")
         seen[identity] = where
-        merged = _merge_priors(document.priors, overrides)
-        pair = PairSpec(x=x, y=y, label=label, priors=merged, pair_set=pair_set, model=model or document.model,
+        pair = PairSpec(x=x, y=y, label=label, priors=priors, pair_set=pair_set, model=model or document.model,
                         pair_sets=(pair_set,) if pair_set else (), group_by=group_by, groups=groups,
                         controls=controls)
         if pair.key in keys:
@@ -168,15 +167,18 @@ def expand_pairs(document: SpecDocument, source: Path | None = None) -> tuple[Pa
         pairs.append(pair)
 
     for index, entry in enumerate(document.pairs):
-        add(entry.x, entry.y, entry.label, entry.priors, f"pairs[{index}]", "", entry.model, entry)
+        add(entry.x, entry.y, entry.label, _merge_priors(document.priors, entry.priors), f"pairs[{index}]", "",
+            entry.model, entry)
     for index, pair_set in enumerate(document.pair_sets):
         repeated = sorted({c for c in pair_set.columns if pair_set.columns.count(c) > 1})
         if repeated:
             raise SpecError(f"{prefix}`pair_sets[{index}].columns`: `{repeated[0]}` is listed more than once; "
                             "list each column once")
+        # every pair of the set has the same priors: merged (and validated) once, not once a pair
+        priors = _merge_priors(document.priors, pair_set.priors)
+        where = f"pair_sets[{index}] ({pair_set.name})"
         for x, y in itertools.combinations(pair_set.columns, 2):
-            add(x, y, "", pair_set.priors, f"pair_sets[{index}] ({pair_set.name})", pair_set.name,
-                pair_set.model, pair_set)
+            add(x, y, "", priors, where, pair_set.name, pair_set.model, pair_set)
     return tuple(pairs)
 
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import datetime as dt
 import difflib
+import functools
 import math
 import re
 import typing
@@ -62,12 +63,15 @@ RESERVED_RULE_NAMES = frozenset(
 CONTROL_CHARACTERS = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
 
 
-def _types_in(annotation: Any) -> set[Any]:
+# Cached: every value the spec gives is checked against its field's annotation (a spec listing 4,950 pairs
+# gives about 10,000), and the annotations are a few dozen, fixed and hashable.
+@functools.cache
+def _types_in(annotation: Any) -> frozenset[Any]:
     """Every type named in a field's annotation (``int | None`` gives int and NoneType)."""
     found = {annotation}
     for arg in typing.get_args(annotation):
         found |= _types_in(arg)
-    return found
+    return frozenset(found)
 
 
 class _Frozen(BaseModel):
@@ -122,7 +126,6 @@ def _wrong_toml_type(value: Any, annotation: Any, suffix: str = "") -> PydanticC
     wants_float = float in types
     wants_int = int in types
     wants_text = str in types or any(isinstance(t, str) for t in types)  # str, or a Literal of words
-    found = _toml_literal(value)
     if isinstance(value, str) and not wants_text and (wants_bool or wants_int or wants_float):
         if wants_bool and value.strip().lower() in ("true", "false", "yes", "no", "on", "off", "0", "1",
                                                      "t", "f", "y", "n"):
@@ -133,28 +136,29 @@ def _wrong_toml_type(value: Any, annotation: Any, suffix: str = "") -> PydanticC
                 return None
             fix = f"write a number without quotes: {number}"
         return PydanticCustomError(WRONG_TOML_TYPE, "{found} is text; {fix}",
-                                   {"found": found, "kind": "text", "fix": fix, "suffix": suffix})
+                                   {"found": _toml_literal(value), "kind": "text", "fix": fix, "suffix": suffix})
     if isinstance(value, int | float) and not isinstance(value, bool) and wants_bool and not (
             wants_int or wants_float):
         return PydanticCustomError(WRONG_TOML_TYPE, "{found} is a number; {fix}",
-                                   {"found": found, "kind": "a number", "fix": "write true or false",
+                                   {"found": _toml_literal(value), "kind": "a number", "fix": "write true or false",
                                     "suffix": suffix})
     if isinstance(value, float) and wants_int and not wants_float and math.isfinite(value) and value.is_integer():
         return PydanticCustomError(WRONG_TOML_TYPE, "{found} is a number with a decimal point; {fix}",
-                                   {"found": found, "kind": "a number with a decimal point",
+                                   {"found": _toml_literal(value), "kind": "a number with a decimal point",
                                     "fix": f"write a whole number without the decimal point: {int(value)}",
                                     "suffix": suffix})
     return None
 
 
-def _scalar_types(annotation: Any) -> set[Any]:
+@functools.cache
+def _scalar_types(annotation: Any) -> frozenset[Any]:
     """The types a field takes as a single value: those of ``_types_in`` not inside a tuple, list or dict."""
     if typing.get_origin(annotation) in (tuple, list, dict):
-        return set()
+        return frozenset()
     found = {annotation}
     for arg in typing.get_args(annotation):
         found |= _scalar_types(arg)
-    return found
+    return frozenset(found)
 
 
 def _tuple_element(annotation: Any) -> Any:
@@ -176,7 +180,7 @@ class _Strict(_Frozen):
     @classmethod
     def _plain_values(cls, value: Any, info: ValidationInfo) -> Any:
         field = cls.model_fields.get(info.field_name or "")
-        types = _types_in(field.annotation) if field is not None else set()
+        types = _types_in(field.annotation) if field is not None else frozenset()
         if isinstance(value, bool) and types & {int, float} and bool not in types:
             raise ValueError(f"should be a number, not {str(value).lower()}")
         if field is not None:
