@@ -5,6 +5,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
+REPORT_FACE = "Report Sans"
+"""The family name the PDF renderer gives the files below; the figures' text asks for it first."""
+
 # The report's own face, taken from matplotlib's bundled DejaVu files so every machine embeds the same bytes.
 FONT_FILES = {
     "normal": "DejaVuSans.ttf",

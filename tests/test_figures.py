@@ -150,20 +150,22 @@ def test_deterministic_bytes(name: str) -> None:
 
 
 @pytest.mark.parametrize("name", BUILDERS)
-def test_no_date_creator_or_real_text(name: str) -> None:
+def test_no_date_or_creator_and_text_asks_for_the_report_face(name: str) -> None:
     svg = default_svg(name)
     assert "<dc:date>" not in svg
     assert "Matplotlib v" not in svg
-    # text is drawn as paths, so there are no <text> elements needing fonts
-    assert parse_svg(svg).find(f".//{SVG_NS}text") is None
+    # text stays text (selectable in the PDF), in the face the PDF renderer embeds, with fallbacks for browsers
+    texts = list(parse_svg(svg).iter(f"{SVG_NS}text"))
+    assert texts and all("font-family: 'Report Sans', 'DejaVu Sans', sans-serif" in t.get("style", "") for t in texts)
 
 
 @pytest.mark.parametrize("name", BUILDERS)
 def test_hostile_labels_render_as_plain_text(name: str) -> None:
     svg = BUILDERS[name](HOSTILE)
-    parse_svg(svg)
+    drawn = " ".join("".join(e.itertext()) for e in parse_svg(svg).iter(f"{SVG_NS}text"))
     assert "<script" not in svg
     assert "-->" not in svg.replace(" -->\n", "")  # only matplotlib's own comment ends
+    assert "<script>" in drawn  # the label is drawn, escaped into text, not markup
 
 
 def test_plain_text_disables_mathtext() -> None:

@@ -81,10 +81,11 @@ def scatter_data(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 # --------------------------------------------------------------------------
 
 
-def test_qq_is_small_well_formed_svg_with_text_as_paths() -> None:
+def test_qq_is_small_well_formed_svg_with_text_in_the_report_face() -> None:
     root = parse_svg(default_qq())
     assert float(root.get("width", "0pt")[:-2]) / 72.0 == pytest.approx(F.FULL_WIDTH / 3.0)
-    assert root.find(f".//{SVG_NS}text") is None  # labels are paths, as in every report figure
+    texts = list(root.iter(f"{SVG_NS}text"))  # labels stay text, as in every report figure
+    assert texts and all(t.get("style", "").count("'Report Sans'") == 1 for t in texts)
     assert group(root, "qq-flag-limit-label") is not None
     assert "<dc:date>" not in default_qq() and "Matplotlib v" not in default_qq()
 
@@ -218,7 +219,8 @@ def test_scatter_highlights_survive_the_subsample() -> None:
     assert marker_count(root, "highlight-points") == 30
     assert len(ids_starting(root, "highlight-label-")) == 12
     assert group(root, "highlight-rings").find(f".//{SVG_NS}image") is None  # vectors, not the bitmap
-    assert root.find(f".//{SVG_NS}text") is None
+    labels = ["".join(t.itertext()) for t in group(root, "highlight-label-0").iter(f"{SVG_NS}text")]
+    assert labels and labels[0].startswith("row ")  # the labels are drawn as text
 
 
 def test_scatter_highlight_skips_non_finite_rows_and_repeats() -> None:

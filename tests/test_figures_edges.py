@@ -26,9 +26,9 @@ GRID = np.linspace(-1.0, 1.0, 401)
 
 
 def svg_texts(svg: str) -> list[str]:
-    """The drawn strings: with text stored as paths, matplotlib keeps each one as an XML comment."""
-    ET.fromstring(svg)  # the document parses
-    return re.findall(r"<!-- (.*?) -->", svg, flags=re.DOTALL)
+    """The drawn strings: matplotlib writes each line of text as one SVG text element."""
+    root = ET.fromstring(svg)  # the document parses
+    return ["".join(e.itertext()) for e in root.iter("{http://www.w3.org/2000/svg}text")]
 
 
 def beta_half_prior(rho: np.ndarray) -> np.ndarray:

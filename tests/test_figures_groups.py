@@ -29,13 +29,9 @@ def parse_svg(svg: str) -> ET.Element:
     return root
 
 
-def parse_with_comments(svg: str) -> ET.Element:
-    """matplotlib writes each drawn string as an XML comment before its glyph paths."""
-    return ET.fromstring(svg, parser=ET.XMLParser(target=ET.TreeBuilder(insert_comments=True)))
-
-
-def comments(element: ET.Element) -> list[str]:
-    return [str(e.text).strip() for e in element.iter() if e.tag is ET.Comment]
+def drawn_strings(element: ET.Element) -> list[str]:
+    """The strings a figure draws: matplotlib writes each line of text as one SVG text element."""
+    return ["".join(e.itertext()).strip() for e in element.iter(f"{SVG_NS}text")]
 
 
 def group(root: ET.Element, gid: str) -> ET.Element | None:
@@ -104,11 +100,12 @@ def separate_svg() -> str:
 
 
 @pytest.mark.parametrize("make", [pooled_svg, separate_svg])
-def test_returns_full_width_svg_with_text_as_paths(make: Callable[[], str]) -> None:
+def test_returns_full_width_svg_with_text_in_the_report_face(make: Callable[[], str]) -> None:
     root = parse_svg(make())
     assert float(root.get("width", "0pt")[:-2]) / 72.0 == pytest.approx(F.FULL_WIDTH)
     assert root.find(f".//{SVG_NS}path") is not None
-    assert root.find(f".//{SVG_NS}text") is None  # text is stored as glyph paths
+    texts = list(root.iter(f"{SVG_NS}text"))
+    assert texts and all("font-family: 'Report Sans', 'DejaVu Sans', sans-serif" in t.get("style", "") for t in texts)
     assert "<dc:date>" not in make() and "Matplotlib v" not in make()
 
 
@@ -159,7 +156,7 @@ def test_rows_top_to_bottom_then_separated_bottom_section() -> None:
 
 def test_labels_show_group_size_with_thousands_separators_and_numbers() -> None:
     rows = [GroupRow("North", 1234567, 0.2, 0.1, 0.3), GroupRow("South", 12, -0.05, -0.4, 0.3)]
-    texts = comments(parse_with_comments(build(rows)))
+    texts = drawn_strings(parse_svg(build(rows)))
     # English thousands separators and the typographic minus U+2212 (common practice)
     assert "n = 1,234,567" in texts and "n = 12" in texts
     assert "−0.05  [−0.40, 0.30]" in texts
@@ -169,13 +166,13 @@ def test_labels_show_group_size_with_thousands_separators_and_numbers() -> None:
 
 
 def test_pooled_legend_only_when_pooled_values_are_given() -> None:
-    with_pooled = parse_with_comments(pooled_svg())
+    with_pooled = parse_svg(pooled_svg())
     legend = group(with_pooled, "group-legend")
     assert legend is not None
-    assert comments(legend) == ["This clinic alone", "Partially pooled"]
-    without = parse_with_comments(separate_svg())
+    assert drawn_strings(legend) == ["This clinic alone", "Partially pooled"]
+    without = parse_svg(separate_svg())
     assert group(without, "group-legend") is None
-    assert not any("Partially pooled" in t for t in comments(without))
+    assert not any("Partially pooled" in t for t in drawn_strings(without))
     assert not any(e.get("id", "").endswith("-pooled-median") for e in without.iter())
 
 
@@ -191,7 +188,7 @@ def test_pooled_interval_drawn_only_for_rows_that_have_one() -> None:
 
 def test_mean_row_is_optional_and_gets_a_default_label() -> None:
     assert group(parse_svg(separate_svg()), "pooled-mean-median") is None
-    texts = comments(parse_with_comments(build(mean=MEAN)))
+    texts = drawn_strings(parse_svg(build(mean=MEAN)))
     assert "Partially pooled mean" in texts
 
 
@@ -208,16 +205,16 @@ def test_height_grows_with_rows_up_to_the_cap() -> None:
 def test_hostile_labels_are_plain_shortened_text() -> None:
     rows = [GroupRow(HOSTILE, 5, 0.1, -0.2, 0.4, 0.05, -0.1, 0.2)]
     svg = build(rows, overall_label=HOSTILE, mean=MEAN, mean_label=HOSTILE, group_noun=HOSTILE)
-    root = parse_with_comments(svg)  # control characters would make the XML invalid
+    root = parse_svg(svg)  # control characters would make the XML invalid
     assert "<script" not in svg
     assert "-->" not in svg.replace(" -->\n", "")  # only the ends of matplotlib's own comments
-    texts = comments(root)
+    texts = drawn_strings(root)
     assert sum("script" in t for t in texts) == 4  # group, overall and mean labels, legend noun
     # the 500 characters were cut: each of those four ends in an ellipsis, no run of "long" is left
     assert sum(t.endswith("…") or t.endswith("… alone") for t in texts) == 4
     assert not any("long" * 5 in t for t in texts)
-    # mathtext would set the x of "$x^2$" in the oblique face; drawn literally there is none
-    assert "Oblique" not in svg
+    # mathtext would set the x of "$x^2$" in the oblique face, as a separate tspan; drawn literally neither is there
+    assert "font-style: oblique" not in svg and "<tspan" not in svg
 
 
 def test_mathtext_would_be_visible_in_the_svg() -> None:
@@ -225,7 +222,8 @@ def test_mathtext_would_be_visible_in_the_svg() -> None:
     with _style():
         fig = Figure(figsize=(2, 1))
         fig.text(0.5, 0.5, "$x^2$")
-        assert "Oblique" in _to_svg(fig)
+        svg = _to_svg(fig)
+        assert "font-style: oblique" in svg and "<tspan" in svg
 
 
 # --------------------------------------------------------------------------

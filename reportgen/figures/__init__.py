@@ -34,13 +34,17 @@ Rendering rules shared by all figures
   defaults are reset inside a private ``rc_context`` (a user's matplotlibrc
   cannot change the look), SVG ids are derived from the fixed hash salt
   ``"reportgen"`` and the date/creator metadata are omitted.
-* Text is stored as paths (``svg.fonttype = "path"``) in DejaVu Sans, the font
-  that ships with matplotlib, so viewers and PDF converters need no fonts.
+* Text stays text (``svg.fonttype = "none"``), measured in DejaVu Sans, the font
+  that ships with matplotlib, and asking for the report face first: the PDF
+  embeds the same DejaVu files for it, so the figures' words can be selected
+  and searched, and the renderer draws a string instead of parsing its glyph
+  outlines (on 21 pair pages the PDF took about 17% less CPU, and the SVGs
+  were about half the size). A browser falls back to an installed DejaVu Sans.
 * Labels may come from untrusted input.  They are drawn as plain text: ``$`` is
   escaped so mathtext is never triggered, control characters are dropped, and
   long labels are wrapped or shortened with an ellipsis.  Markup such as
-  ``<script>`` cannot reach the SVG as markup; text only appears as paths and in
-  XML comments, which matplotlib escapes.
+  ``<script>`` cannot reach the SVG as markup: text appears only as the content
+  of text elements, which matplotlib escapes.
 * Dense scatter layers are rasterised (at :data:`RASTER_DPI`) once they have
   more than :data:`RASTER_THRESHOLD` points so that PDF rendering stays fast.
 * Widths suit an A4 page with 18 mm margins: :data:`FULL_WIDTH` for full-width

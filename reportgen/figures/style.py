@@ -9,7 +9,6 @@ untrusted label text, number formatting and the argument checks.
 
 from __future__ import annotations
 
-import codecs
 import functools
 import io
 import math
@@ -20,14 +19,12 @@ from typing import Any, ParamSpec
 
 import matplotlib as mpl
 import numpy as np
-from matplotlib import cbook
-from matplotlib.backend_bases import RendererBase
-from matplotlib.backends.backend_mixed import MixedModeRenderer
-from matplotlib.backends.backend_svg import FigureCanvasSVG, RendererSVG
 from matplotlib.figure import Figure
 from matplotlib.font_manager import FontProperties
 from matplotlib.textpath import text_to_path
 from numpy.typing import ArrayLike
+
+from reportgen.assets import REPORT_FACE
 
 __all__ = [
     "ALERT",
@@ -90,10 +87,12 @@ RASTER_THRESHOLD = 300
 
 _SHADE_ALPHA = 0.3  # credible-interval fill: clearly darker than the MIST band
 _FONT = "DejaVu Sans"
+_MATPLOTLIB_FAMILY = f"font-family: '{_FONT}'"
+_REPORT_FAMILIES = f"font-family: '{REPORT_FACE}', '{_FONT}', sans-serif"
 
 _RC: dict[str, Any] = {
     "svg.hashsalt": "reportgen",
-    "svg.fonttype": "path",
+    "svg.fonttype": "none",
     "svg.image_inline": True,
     "font.family": [_FONT],
     "font.size": 8.0,
@@ -170,49 +169,22 @@ def _styled(func: Callable[_P, str]) -> Callable[_P, str]:
     return wrapper
 
 
-class _OnePathPerTextRenderer(RendererSVG):
-    """The SVG renderer, writing each string as one path instead of one ``<use>`` of a shared glyph per letter.
-
-    Both are the same outlines of the same font; but an SVG renderer pays for every element (WeasyPrint
-    looks each ``<use>`` up and restyles it), and the letters were most of a figure's elements: measured on
-    a pair's three figures, the PDF took 0.30 s of CPU with a ``<use>`` per letter, 0.13 s with a path per
-    string, for SVG files about 1.6 times larger. The string itself is kept as an XML comment, as before.
-    """
-
-    def _draw_text_as_path(self, gc: Any, x: float, y: float, s: str, prop: Any, angle: float, ismath: Any,
-                           mtext: Any = None) -> None:
-        if ismath:  # never in our figures (labels are escaped); left as matplotlib draws it, glyph by glyph
-            super()._draw_text_as_path(gc, x, y, s, prop, angle, ismath, mtext)
-            return
-        self.writer.comment(s)
-        RendererBase._draw_text_as_path(self, gc, x, y, s, prop, angle, ismath, mtext)
-
-
-class _ReportCanvasSVG(FigureCanvasSVG):
-    """matplotlib's SVG canvas (``print_svg`` as in matplotlib 3.9 to 3.11) drawing with the renderer above."""
-
-    def print_svg(self, filename: Any, *, bbox_inches_restore: Any = None, metadata: Any = None,
-                  **_: Any) -> None:
-        with cbook.open_file_cm(filename, "w", encoding="utf-8") as handle:
-            if not cbook.file_requires_unicode(handle):
-                handle = codecs.getwriter("utf-8")(handle)
-            dpi = self.figure.dpi
-            self.figure.dpi = 72
-            width, height = self.figure.get_size_inches()
-            renderer = MixedModeRenderer(
-                self.figure, width, height, dpi,
-                _OnePathPerTextRenderer(width * 72, height * 72, handle, image_dpi=dpi, metadata=metadata),
-                bbox_inches_restore=bbox_inches_restore)
-            self.figure.draw(renderer)
-            renderer.finalize()
-
-
 def _to_svg(fig: Figure) -> str:
     """Render *fig* to an SVG document (call inside :func:`_style`)."""
-    _ReportCanvasSVG(fig)
     buf = io.BytesIO()
     fig.savefig(buf, format="svg", dpi=RASTER_DPI, metadata=_SVG_METADATA)
-    return buf.getvalue().decode("utf-8")
+    return _with_report_face(buf.getvalue().decode("utf-8"))
+
+
+def _with_report_face(svg: str) -> str:
+    """Name the report's own face first in every text style, the system's DejaVu Sans after it.
+
+    matplotlib names the face it measured with (DejaVu Sans, its bundled copy). The PDF renderer knows the
+    same files as the report face, so the figures' text is embedded from the bytes the body text uses; a
+    browser showing the HTML falls back to an installed DejaVu Sans, then to its own sans-serif. Each
+    string is placed by its anchor (start, middle, end), so a fallback face shifts no alignment.
+    """
+    return svg.replace(_MATPLOTLIB_FAMILY, _REPORT_FAMILIES)
 
 
 # --------------------------------------------------------------------------

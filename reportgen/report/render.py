@@ -43,7 +43,7 @@ from jinja2.exceptions import SecurityError
 from jinja2.sandbox import ImmutableSandboxedEnvironment
 
 from reportgen import figures
-from reportgen.assets import font_files, shipped_templates
+from reportgen.assets import REPORT_FACE, font_files, shipped_templates
 from reportgen.errors import ReportAssetError
 from reportgen.spec import Spec
 
@@ -388,7 +388,7 @@ def _font_css() -> tuple[str, dict[str, Path]]:
         allowed[url] = path
         weight = "bold" if style == "bold" else "normal"
         font_style = "italic" if style == "italic" else "normal"
-        rules.append(f'@font-face {{ font-family: "Report Sans"; src: url("{url}"); '
+        rules.append(f'@font-face {{ font-family: "{REPORT_FACE}"; src: url("{url}"); '
                      f"font-weight: {weight}; font-style: {font_style}; }}")
     return "\n".join(rules), allowed
 
