@@ -102,7 +102,7 @@ class PairFit:
     draws: dict[str, np.ndarray]
     diverging: np.ndarray
     energy: np.ndarray
-    inference_data: Any = field(repr=False)
+    netcdf: bytes = field(repr=False)  # the draws file's bytes, written where the pair was fitted
     seconds: float  # every attempt's sampling, plus swapping the data in
     compile_seconds: float
     # every sampling run in order; the draws are the last one's (empty for fits made elsewhere, as in tests)
@@ -116,6 +116,21 @@ class PairFit:
     @property
     def retried(self) -> bool:
         return len(self.attempts) > 1
+
+
+def netcdf_bytes(idata: Any) -> bytes:
+    """The draws file of one fit (every group of the sampler's output, in one netCDF-4 file), made in the
+    process that fitted the pair: worker processes then hand back bytes, not the sampler's objects, and the
+    run's own process only writes them down."""
+    import dask
+    import xarray as xr
+
+    tree = xr.DataTree.from_dict({group: idata[group] for group in idata.groups()})
+    # On a dask worker xarray would guard the write with a cluster-wide lock named after the target, which
+    # for an in-memory file the scheduler cannot know; the file is this process's alone, so a local lock
+    # (what xarray takes under the synchronous scheduler) is enough.
+    with dask.config.set(scheduler="synchronous"):
+        return bytes(tree.to_netcdf(None, engine="h5netcdf"))
 
 
 class Fitter:
@@ -201,7 +216,7 @@ class Fitter:
             draws={name: np.asarray(draws[name], dtype=float) for name in definition.PARAMETERS},
             diverging=np.asarray(stats["diverging"].values, dtype=bool),
             energy=np.asarray(stats["energy"].values, dtype=float),
-            inference_data=idata,
+            netcdf=netcdf_bytes(idata),
             seconds=seconds,
             compile_seconds=compile_seconds,
             attempts=tuple(attempts),

@@ -427,7 +427,7 @@ def write_draws(staging: Path, fits: dict[str, tuple[PairFit, ...]]) -> None:
     (staging / DRAWS_FOLDER).mkdir()
     for key, pair_fits in fits.items():
         for fit in pair_fits:
-            fit.inference_data.to_netcdf(str(staging / draws_file(key, fit.model)), engine="h5netcdf")
+            (staging / draws_file(key, fit.model)).write_bytes(fit.netcdf)
 
 
 def write_outputs(staging: Path, html: str, pdf: bytes, results: RunResults, record: dict[str, Any],

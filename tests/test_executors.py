@@ -123,7 +123,7 @@ def _made_up_fit(self: Fitter, pair: object, master_seed: int, model: str = "nor
     draws = {name: rng.normal(0.2, 0.05, size=(2, 150)) for name in ("rho", "mu_x", "mu_y")}
     draws |= {name: np.exp(rng.normal(0.0, 0.05, size=(2, 150))) for name in ("sigma_x", "sigma_y")}
     return PairFit(key=key, model=model, seed=seed, draws=draws, diverging=np.zeros((2, 150), bool),
-                   energy=rng.normal(size=(2, 150)), inference_data=None, seconds=0.0, compile_seconds=0.0)
+                   energy=rng.normal(size=(2, 150)), netcdf=b"", seconds=0.0, compile_seconds=0.0)
 
 
 def made_up_sampler_in_worker() -> None:

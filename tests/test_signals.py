@@ -81,7 +81,7 @@ def _nan_padded_fit(pair: object, model: str) -> PairFit:
     values[:, :10] = 0.3
     draws = {"rho": values, "mu_x": values, "mu_y": values, "sigma_x": values, "sigma_y": values}
     return PairFit(key=str(pair), model=model, seed=1, draws=draws, diverging=np.zeros((2, 400), bool),
-                   energy=values, inference_data=None, seconds=0.1, compile_seconds=0.0)
+                   energy=values, netcdf=b"", seconds=0.1, compile_seconds=0.0)
 
 
 def test_ctrl_c_swallowed_by_the_sampler_still_stops_the_run(previous: tuple, monkeypatch: pytest.MonkeyPatch) -> None:
