@@ -51,9 +51,7 @@ def _word_boxes(pdf: Path) -> list[tuple[int, float, str]]:
     return boxes
 
 
-@pytest.fixture(scope="module")
-def long_label_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    folder = tmp_path_factory.mktemp("long")
+def _long_label_run(folder: Path, engine: str) -> Path:
     frame = correlated_frame(40, 0.5, seed=3, names=("hh", "pm"))
     frame.to_csv(folder / "data.csv", index=False)
     spec = write_spec(folder, f"""
@@ -74,22 +72,36 @@ def long_label_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
         description = "an association at least moderately positive by the standards that the client has agreed"
         statement = "above"
         threshold = 0.3
-    """, quick=False)
+    """, quick=engine != "exact")
     text = spec.read_text(encoding="utf-8").replace(
         'title = "Test report"',
         'title = "Test report"\nclient = "Northfold District Council"\ndraft = true\n'
         "# a starter's note that the client must not read")
     spec.write_text(text, encoding="utf-8")
-    reportgen.run(spec, folder / "out", engine="exact")
+    reportgen.run(spec, folder / "out", engine=engine)
     return folder / "out" / "report.pdf"
 
 
-def test_the_widest_labels_stay_inside_the_right_margin(long_label_run: Path) -> None:
+@pytest.fixture(scope="module")
+def long_label_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    return _long_label_run(tmp_path_factory.mktemp("long"), "exact")
+
+
+@pytest.fixture(scope="module")
+def long_label_sampled_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The same spec sampled (short chains): its posterior table has the sampler's four extra columns."""
+    return _long_label_run(tmp_path_factory.mktemp("long_sampled"), "mcmc")
+
+
+@pytest.mark.parametrize("run", ["long_label_run", "long_label_sampled_run"])
+def test_the_widest_labels_stay_inside_the_right_margin(run: str, request: pytest.FixtureRequest) -> None:
     """Every word on every page ends left of the text block's right edge (A4 less the 18 mm margin)."""
+    pdf = request.getfixturevalue(run)
     limit = A4_WIDTH_PT - RIGHT_MARGIN_MM * MM + 1.0  # one point for glyph overhang
-    outside = [(page, round(right, 1), word) for page, right, word in _word_boxes(long_label_run)
-               if right > limit]
+    outside = [(page, round(right, 1), word) for page, right, word in _word_boxes(pdf) if right > limit]
     assert not outside, outside[:10]
+    if run == "long_label_sampled_run":
+        assert "MCSE" in " ".join(word for _, _, word in _word_boxes(pdf))  # the widest table is there
 
 
 def test_a_draft_says_so_on_every_page(long_label_run: Path) -> None:
