@@ -37,6 +37,7 @@ bench: $(STAMP)
 	$(BIN)/python benchmarks/bench_groups.py
 	$(BIN)/python benchmarks/bench_report.py
 	$(BIN)/python benchmarks/bench_summaries.py
+	$(BIN)/python benchmarks/bench_exact_pair.py
 	$(BIN)/python benchmarks/bench_executors.py
 	$(BIN)/python benchmarks/bench_csv.py
 	$(BIN)/python benchmarks/bench_rows.py

@@ -84,10 +84,18 @@ may then sit far out in ``zeta`` (``atanh(r)`` is about 115 at ``c = 1e-100``),
 which it is allowed up to ``|zeta| = 200``. Tail and interval probabilities add
 per-interval integrals of a 6th-order rule; the mean and the Bayes factor use
 the trapezoidal rule on the whole grid.
+
+Summaries are read off that one grid: the cumulative and survival curves are
+cubic Hermite interpolants of the summed intervals (the density as slopes),
+quantiles are their crossings found by a safeguarded Newton iteration on all
+requested probabilities at once, quantiles of ``rho^2`` are crossings of
+``P(|zeta| <= u)`` formed from the same curve, and the HDI solves its two
+equations (mass inside, equal end densities) by Newton's method on both ends.
 """
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -96,6 +104,8 @@ from functools import cached_property
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import interpolate, optimize, special, stats
+
+from reportgen.piecewise import GridCubic
 
 __all__ = [
     "MIN_ONE_MINUS_ABS_R",
@@ -132,6 +142,9 @@ _COMPLEMENT_TOL = 1e-9  # one_minus_abs_r must agree with 1 - |r| to this (absol
 _SD_PRIOR_K = {"jeffreys": 1, "flat": 0}  # the prior on each sd is sigma^-k
 _MAX_GRID_PASSES = 16
 _MIN_GRID_SIZE = 101
+_GRID_CACHE_SIZE = 16  # kernel terms kept for this many grids (about 200 kB each at 4001 points)
+_ABS_Z_TABLE_POINTS = 129  # brackets for the quantiles of rho^2 (Newton's method then needs a few steps)
+_POSTERIOR_CACHE_SIZE = 8  # posteriors kept (about 1 MB each at 4001 points, with their summaries' curves)
 
 
 # --------------------------------------------------------------------------- validation
@@ -467,12 +480,10 @@ def _log_stretched_beta_from_parts(
 ) -> np.ndarray:
     inside = (one_minus_rho >= 0.0) & (one_plus_rho >= 0.0)
     with np.errstate(divide="ignore", invalid="ignore"):
-        log_pdf = (
-            special.xlogy(a - 1.0, 0.5 * one_plus_rho)
-            + special.xlogy(b - 1.0, 0.5 * one_minus_rho)
-            - math.log(2.0)
-            - special.betaln(a, b)
-        )
+        # a shape of 1 contributes xlogy(0, .) = 0 exactly: left out, the sum is the same
+        upper_end = special.xlogy(a - 1.0, 0.5 * one_plus_rho) if a != 1.0 else 0.0
+        lower_end = special.xlogy(b - 1.0, 0.5 * one_minus_rho) if b != 1.0 else 0.0
+        log_pdf = upper_end + lower_end - math.log(2.0) - special.betaln(a, b)
     return np.where(inside, log_pdf, -np.inf)
 
 
@@ -515,11 +526,34 @@ def _one_minus_plus_tanh(zeta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return 2.0 / (1.0 + np.exp(2.0 * zeta)), 2.0 / (1.0 + np.exp(-2.0 * zeta))
 
 
-def _log_integrand_z(zeta: np.ndarray, case: _Case, a: float, b: float, zeta_ref: float) -> np.ndarray:
-    """log[prior(rho) h(rho) (1 - rho^2)] at rho = tanh(zeta), minus its power terms at zeta_ref.
+@dataclass(frozen=True, eq=False)
+class _GridTerms:
+    """The log integrand's terms on one grid that do not depend on the prior on rho.
+
+    ``kernel`` is log h(rho) at rho = tanh(zeta) minus its power terms at atanh(r) (see
+    :func:`_grid_terms`); ``log_one_minus`` and ``log_one_plus`` are the logs of ``1 -/+ rho``,
+    whose sum is the Jacobian ``log(1 - rho^2)``.
+    """
+
+    zeta: np.ndarray
+    kernel: np.ndarray
+    one_minus: np.ndarray
+    one_plus: np.ndarray
+    log_one_minus: np.ndarray
+    log_one_plus: np.ndarray
+
+    def log_integrand(self, a: float, b: float) -> np.ndarray:
+        """log[prior(rho) h(rho) (1 - rho^2)] with a stretched Beta(a, b) prior, minus the power terms at atanh(r)."""
+        return (self.kernel + _log_stretched_beta_from_parts(self.one_minus, self.one_plus, a, b)
+                + self.log_one_minus + self.log_one_plus)
+
+
+@functools.lru_cache(maxsize=_GRID_CACHE_SIZE)
+def _grid_terms(case: _Case, lo: float, hi: float, grid_size: int) -> _GridTerms:
+    """The kernel terms on ``grid_size`` points from ``lo`` to ``hi``, minus the power terms at ``atanh(r)``.
 
     The power terms ``power * log(1 - rho^2) - (m - 1/2) log(1 - rho r)`` are O(n) in
-    size; their difference from the value at ``zeta_ref`` is formed directly from
+    size; their difference from the value at ``zeta_ref = atanh(r)`` is formed directly from
     ``d = zeta - zeta_ref``, using ``cosh(zeta)/cosh(zeta_ref) = cosh d + rho_ref sinh d``
     and ``rho - rho_ref = sinh d (1 - rho_ref^2) / (cosh d + rho_ref sinh d)``, so the
     result keeps full relative precision on narrow grids at large n. Where ``|d| > 1``
@@ -527,9 +561,15 @@ def _log_integrand_z(zeta: np.ndarray, case: _Case, a: float, b: float, zeta_ref
     from ``1 - rho``, ``1 + rho`` and ``1 - rho r``: there the ``d`` form can cancel
     (``2 sinh^2(d/2) + rho_ref sinh d`` when ``rho_ref`` is near -+1 and ``d`` has the
     other sign). The subtracted constant is returned by :func:`_log_powers_at`.
+
+    Kept for the last few grids: the prior sensitivity check asks for the same data under
+    several priors on rho, whose grids start alike and often end alike.
     """
+    zeta = np.linspace(lo, hi, grid_size)
+    zeta_ref = case.centre
     m = case.order
     one_minus, one_plus = _one_minus_plus_tanh(zeta)
+    log_one_minus, log_one_plus = np.log(one_minus), np.log(one_plus)
     one_minus_x, one_plus_x = _one_minus_plus_x(one_minus, one_plus, case.r, case.complement)
     ref_minus, ref_plus = _one_minus_plus_tanh(np.array([zeta_ref]))
     ref_minus_x, _ = _one_minus_plus_x(ref_minus, ref_plus, case.r, case.complement)
@@ -544,15 +584,15 @@ def _log_integrand_z(zeta: np.ndarray, case: _Case, a: float, b: float, zeta_ref
     powers[near] = (-2.0 * case.power * np.log1p(cosh_ratio_m1)
                     - (m - 0.5) * np.log1p(-case.r * rho_diff / ref_minus_x[0]))
     far = ~near
-    log_rho2_ratio = np.log(one_minus[far]) + np.log(one_plus[far]) - math.log(ref_minus[0]) - math.log(ref_plus[0])
+    log_rho2_ratio = log_one_minus[far] + log_one_plus[far] - math.log(ref_minus[0]) - math.log(ref_plus[0])
     powers[far] = case.power * log_rho2_ratio - (m - 0.5) * (np.log(one_minus_x[far]) - math.log(ref_minus_x[0]))
-    return (
-        powers
-        + _log_kernel_remainder(one_minus_x, one_plus_x, m)
-        + _log_stretched_beta_from_parts(one_minus, one_plus, a, b)
-        + np.log(one_minus)
-        + np.log(one_plus)
-    )
+    terms = _GridTerms(zeta=zeta, kernel=powers + _log_kernel_remainder(one_minus_x, one_plus_x, m),
+                       one_minus=one_minus, one_plus=one_plus, log_one_minus=log_one_minus,
+                       log_one_plus=log_one_plus)
+    for values in (terms.zeta, terms.kernel, terms.one_minus, terms.one_plus, terms.log_one_minus,
+                   terms.log_one_plus):
+        values.setflags(write=False)
+    return terms
 
 
 def _log_powers_at(zeta_ref: float, case: _Case) -> float:
@@ -563,22 +603,23 @@ def _log_powers_at(zeta_ref: float, case: _Case) -> float:
     return case.power * log_one_minus_rho2 - (case.order - 0.5) * math.log(ref_minus_x[0])
 
 
-def _adaptive_grid(case: _Case, a: float, b: float, grid_size: int) -> tuple[np.ndarray, np.ndarray]:
+def _adaptive_grid(case: _Case, a: float, b: float, grid_size: int) -> tuple[_GridTerms, np.ndarray]:
     """Uniform grid in zeta covering where the log integrand is within _LOG_DROP of its max.
 
     The first grid spans ``atanh(r) +/- 60 / sqrt(n - 3)``, cut at ``+/-_Z_LIMIT`` or
     ``_Z_MARGIN`` beyond ``atanh(r)``, whichever is further out; later grids may grow up
     to ``+/-_Z_MAX``, which only heavy tails (flat sd priors at the smallest n) or
-    ``|r|`` within about 1e-8 of 1 need. Returns the grid and the log integrand on it,
-    offset by ``-_log_powers_at(atanh(r), case)``.
+    ``|r|`` within about 1e-8 of 1 need. Returns the terms on the grid and the log integrand
+    on it, offset by ``-_log_powers_at(atanh(r), case)``.
     """
     scale = 1.0 / math.sqrt(case.n - 3)
     centre = case.centre
     lo = max(centre - _INITIAL_HALF_WIDTH * scale, min(-_Z_LIMIT, centre - _Z_MARGIN))
     hi = min(centre + _INITIAL_HALF_WIDTH * scale, max(_Z_LIMIT, centre + _Z_MARGIN))
     for _ in range(_MAX_GRID_PASSES):
-        grid = np.linspace(lo, hi, grid_size)
-        log_f = _log_integrand_z(grid, case, a, b, centre)
+        terms = _grid_terms(case, lo, hi, grid_size)
+        grid = terms.zeta
+        log_f = terms.log_integrand(a, b)
         kept = np.flatnonzero(log_f >= log_f.max() - _LOG_DROP)
         first, last = int(kept[0]), int(kept[-1])
         grow_lo = first == 0 and lo > -_Z_MAX
@@ -594,7 +635,57 @@ def _adaptive_grid(case: _Case, a: float, b: float, grid_size: int) -> tuple[np.
             break
         lo = float(grid[max(first - 1, 0)])
         hi = float(grid[min(last + 1, grid_size - 1)])
-    return grid, log_f
+    return terms, log_f
+
+
+def _roots_in_brackets(value_and_slope: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]], a: np.ndarray,
+                       b: np.ndarray, f_a: np.ndarray, f_b: np.ndarray, goal: np.ndarray) -> np.ndarray:
+    """Where a smooth monotone function takes the values ``goal``, each inside its bracket [a, b].
+
+    ``value_and_slope(x)`` gives the function and its derivative; ``f_a`` and ``f_b``, of opposite signs,
+    are the function minus ``goal`` at the ends. Starting from the secant through the ends, Newton's method
+    runs on all brackets together, falling back to bisection for any step that would leave its bracket (a
+    safeguarded Newton iteration, common practice), until the next step would be below a scalar
+    root-finder's tolerance of 1e-15 (absolute and relative), even where rounding puts it just outside the
+    bracket.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = a - f_a * ((b - a) / (f_b - f_a))
+        x = np.where((x > a) & (x < b), x, 0.5 * (a + b))
+        for _ in range(100):
+            value, derivative = value_and_slope(x)
+            f_x = value - goal
+            same_side = np.sign(f_x) == np.sign(f_a)
+            a, f_a = np.where(same_side, x, a), np.where(same_side, f_x, f_a)
+            b = np.where(same_side, b, x)
+            newton = x - f_x / derivative
+            done = (f_x == 0.0) | (np.abs(newton - x) <= 1e-15 * (1.0 + np.abs(x)))
+            if done.all():
+                break
+            inside = np.isfinite(newton) & (newton > a) & (newton < b)
+            x = np.where(done, x, np.where(inside, newton, 0.5 * (a + b)))
+    return x
+
+
+def _root_in_bracket(value_and_slope: Callable[[float], tuple[float, float]], a: float, b: float, f_a: float,
+                     f_b: float, goal: float) -> float:
+    """:func:`_roots_in_brackets` for one bracket, step for step in Python floats (a single median or
+    quantile costs a few microseconds this way, against a few hundred through small arrays)."""
+    x = a - f_a * ((b - a) / (f_b - f_a))
+    if not a < x < b:
+        x = 0.5 * (a + b)
+    for _ in range(100):
+        value, derivative = value_and_slope(x)
+        f_x = value - goal
+        if (f_x > 0.0) - (f_x < 0.0) == (f_a > 0.0) - (f_a < 0.0):
+            a, f_a = x, f_x
+        else:
+            b = x
+        newton = x - f_x / derivative if derivative != 0.0 else math.nan
+        if f_x == 0.0 or abs(newton - x) <= 1e-15 * (1.0 + abs(x)):
+            break
+        x = newton if math.isfinite(newton) and a < newton < b else 0.5 * (a + b)
+    return x
 
 
 @dataclass(frozen=True, eq=False)
@@ -677,22 +768,31 @@ class ExactPosterior:
         return np.where(pieces > 0.0, pieces, trapezoid)
 
     @cached_property
-    def _cdf_spline(self) -> interpolate.CubicHermiteSpline:
+    def _tail_cubics(self) -> GridCubic:
+        """The cumulative curve's pieces followed by the survival curve's, each the cubic Hermite interpolant
+        of the summed pieces with the density as its slopes; the survival curve is summed from the upper end,
+        so that tiny upper tails keep their digits."""
         pieces = self._pieces
         total = float(np.sum(pieces))
         cumulative = np.concatenate(([0.0], np.cumsum(pieces))) / total
-        return interpolate.CubicHermiteSpline(self.z, cumulative, self.z_density / total)
-
-    @cached_property
-    def _sf_spline(self) -> interpolate.CubicHermiteSpline:
-        pieces = self._pieces
-        total = float(np.sum(pieces))
         survival = np.concatenate((np.cumsum(pieces[::-1])[::-1], [0.0])) / total
-        return interpolate.CubicHermiteSpline(self.z, survival, -self.z_density / total)
+        slopes = self.z_density / total
+        return GridCubic.hermite(self.z, np.stack((cumulative, survival)), np.stack((slopes, -slopes)))
 
     @cached_property
-    def _log_z_density_spline(self) -> interpolate.CubicSpline:
-        return interpolate.CubicSpline(self.z, np.log(self.z_density))
+    def _cdf_cubic(self) -> GridCubic:
+        """P(zeta <= x)."""
+        return self._tail_cubics.curve(0)
+
+    @cached_property
+    def _sf_cubic(self) -> GridCubic:
+        """P(zeta > x)."""
+        return self._tail_cubics.curve(1)
+
+    @cached_property
+    def _log_z_density_cubic(self) -> GridCubic:
+        """The log density of zeta between the knots: scipy's not-a-knot cubic spline through the grid."""
+        return GridCubic.from_coefficients(self.z, interpolate.CubicSpline(self.z, np.log(self.z_density)).c)
 
     def _z_of(self, x: np.ndarray) -> np.ndarray:
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -701,81 +801,167 @@ class ExactPosterior:
     def _quantile_z(self, probs: np.ndarray) -> np.ndarray:
         """zeta-quantiles for 0 <= q <= 1, limited to the grid (its ends for q = 0 and 1), all at once.
 
-        Each q is bracketed by the grid interval where the cumulative spline (below 0.5) or the survival
-        spline (above, so tiny upper tails keep their digits) crosses it; the crossing is then found for all
-        brackets together by Newton's method on the spline, with the density as its derivative, falling back
-        to bisection for any step that would leave its bracket (a safeguarded Newton iteration, common
-        practice), until the next step would be below a scalar root-finder's tolerance of 1e-15.
+        Each q is bracketed by the grid interval where the cumulative curve (below 0.5) or the survival
+        curve (above, so tiny upper tails keep their digits) crosses it; the crossings are then found for
+        all brackets together by :func:`_roots_in_brackets` on those intervals' cubics.
         """
         lower_half = probs <= 0.5
-        target = np.where(lower_half, np.clip(probs, 0.0, 0.5), 1.0 - np.clip(probs, 0.5, 1.0))
-        cdf_knots, sf_knots = self._cdf_spline.c[-1], self._sf_spline.c[-1]
-        last = self.z.size - 2
-        index = np.where(lower_half,
-                         np.clip(np.searchsorted(cdf_knots, target, side="right") - 1, 0, last),
-                         np.clip(np.searchsorted(-sf_knots, -target, side="right") - 1, 0, last))
-
-        def gap(zeta: np.ndarray, rising: np.ndarray, goal: np.ndarray) -> np.ndarray:
-            """The spline's value minus its goal: the cumulative spline where ``rising``, else the survival."""
-            return np.where(rising, self._cdf_spline(zeta), self._sf_spline(zeta)) - goal
-
+        goal = np.where(lower_half, np.minimum(np.maximum(probs, 0.0), 0.5),
+                        1.0 - np.minimum(np.maximum(probs, 0.5), 1.0))
+        cdf_knots, falling_knots = self._bracket_knots
+        pieces = self.z.size - 1
+        index = np.where(lower_half, np.searchsorted(cdf_knots, goal, side="right"),
+                         np.searchsorted(falling_knots, -goal, side="right"))
         lo, hi = self.z[index], self.z[index + 1]
-        f_lo, f_hi = gap(lo, lower_half, target), gap(hi, lower_half, target)
+        # the survival curve's pieces follow the cumulative curve's in _tail_cubics
+        stacked = np.where(lower_half, index, index + pieces)
+        tails = self._tail_cubics
+        f_lo = tails.on_piece(stacked, lo) - goal
+        f_hi = tails.on_piece(np.where(index + 1 < pieces, stacked + 1, stacked), hi) - goal
         # no sign change within the bracket (rounding at a knot): the nearer end, as a root-finder would give
         out = np.where(np.abs(f_hi) <= np.abs(f_lo), hi, lo)
         out = np.where(f_lo == 0.0, lo, np.where(f_hi == 0.0, hi, out))
-        bracketed = f_lo * f_hi < 0.0
+        # q = 0 and q = 1 are the grid's ends whatever the curves do there
+        bracketed = (f_lo * f_hi < 0.0) & (probs > 0.0) & (probs < 1.0)
         if bracketed.any():
-            out[bracketed] = self._newton_in_brackets(lo[bracketed], hi[bracketed], f_lo[bracketed],
-                                                      lower_half[bracketed], target[bracketed], gap)
-        out = np.where(probs <= 0.0, self.z[0], np.where(probs >= 1.0, self.z[-1], out))
-        return out
+            chosen = stacked[bracketed]
 
-    def _newton_in_brackets(self, a: np.ndarray, b: np.ndarray, f_a: np.ndarray, rising: np.ndarray,
-                            goal: np.ndarray, gap: Callable[..., np.ndarray]) -> np.ndarray:
-        """The roots of ``gap`` inside the brackets [a, b] (a sign change in each), to a few ulps."""
-        slope = self._cdf_slope
-        x = 0.5 * (a + b)
-        for _ in range(100):
-            f_x = gap(x, rising, goal)
-            # the survival spline falls as fast as the cumulative one rises
-            derivative = np.where(rising, slope(x), -slope(x))
-            same_side = np.sign(f_x) == np.sign(f_a)
-            a, f_a = np.where(same_side, x, a), np.where(same_side, f_x, f_a)
-            b = np.where(same_side, b, x)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                newton = x - f_x / derivative
-            # a Newton step below the root-finder's tolerance (1e-15, absolute and relative) ends the search,
-            # even where rounding puts it just outside the bracket
-            done = (f_x == 0.0) | (np.abs(newton - x) <= 1e-15 * (1.0 + np.abs(x)))
-            if done.all():
-                break
-            inside = np.isfinite(newton) & (newton > a) & (newton < b)
-            x = np.where(done, x, np.where(inside, newton, 0.5 * (a + b)))
-        return x
+            def value_and_slope(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+                return tails.value_and_slope_on_piece(chosen, x)
+
+            out[bracketed] = _roots_in_brackets(value_and_slope, lo[bracketed], hi[bracketed], f_lo[bracketed],
+                                                f_hi[bracketed], goal[bracketed])
+        return np.where(probs <= 0.0, self.z[0], np.where(probs >= 1.0, self.z[-1], out))
 
     @cached_property
-    def _cdf_slope(self) -> interpolate.PPoly:
-        return self._cdf_spline.derivative()
+    def _bracket_knots(self) -> tuple[np.ndarray, np.ndarray]:
+        """The cumulative curve's values at the knots after the first, and the survival curve's negated
+        (increasing): searched for the grid interval holding a quantile."""
+        return self._cdf_cubic.c[3][1:], -self._sf_cubic.c[3][1:]
 
-    def _log_rho_density_at_z(self, zeta: float) -> float:
-        one_minus, one_plus = _one_minus_plus_tanh(np.array([zeta]))
-        return float(self._log_z_density_spline(zeta) - np.log(one_minus[0]) - np.log(one_plus[0]))
+    def _one_quantile_z(self, q: float) -> float:
+        """:meth:`_quantile_z` for one probability strictly between 0 and 1, step for step in Python floats."""
+        tails = self._tail_cubics
+        pieces = self.z.size - 1
+        if q <= 0.5:
+            goal = min(max(q, 0.0), 0.5)
+            index = int(np.searchsorted(self._bracket_knots[0], goal, side="right"))
+            stacked = index
+        else:
+            goal = 1.0 - min(max(q, 0.5), 1.0)
+            index = int(np.searchsorted(self._bracket_knots[1], -goal, side="right"))
+            stacked = index + pieces
+        lo, hi = float(self.z[index]), float(self.z[index + 1])
+        f_lo = tails.at_piece(stacked, lo)[0] - goal
+        f_hi = tails.at_piece(stacked + 1 if index + 1 < pieces else stacked, hi)[0] - goal
+        if f_lo == 0.0:
+            return lo
+        if f_hi == 0.0:
+            return hi
+        if f_lo * f_hi < 0.0:
+            return _root_in_bracket(lambda x: tails.at_piece(stacked, x), lo, hi, f_lo, f_hi, goal)
+        return hi if abs(f_hi) <= abs(f_lo) else lo
+
+    def _clipped_cdf_z(self, zeta: np.ndarray) -> np.ndarray:
+        """P(atanh(rho) <= zeta) as :meth:`cdf` gives it: 0 below the grid, 1 above it."""
+        first, last = self.z[0], self.z[-1]
+        inside = np.minimum(np.maximum(self._cdf_cubic(np.minimum(np.maximum(zeta, first), last)), 0.0), 1.0)
+        return np.where(zeta <= first, 0.0, np.where(zeta >= last, 1.0, inside))
+
+    def _abs_z_cdf(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """P(|atanh(rho)| <= u) for u >= 0, and its derivative in u."""
+        first, last = self.z[0], self.z[-1]
+        cdf = self._clipped_cdf_z(u) - self._clipped_cdf_z(-u)
+        slope = self._cdf_cubic.slope
+        up = np.where((u > first) & (u < last), slope(np.minimum(np.maximum(u, first), last)), 0.0)
+        down = np.where((-u > first) & (-u < last), slope(np.minimum(np.maximum(-u, first), last)), 0.0)
+        return cdf, up + down
+
+    @cached_property
+    def _abs_z_table(self) -> tuple[np.ndarray, np.ndarray]:
+        """Points from 0 to the grid's largest ``|z|``, with P(|atanh(rho)| <= u) at each (made non-decreasing),
+        to bracket the quantiles of rho^2."""
+        points = np.linspace(0.0, max(-float(self.z[0]), float(self.z[-1])), _ABS_Z_TABLE_POINTS)
+        return points, np.maximum.accumulate(self._abs_z_cdf(points)[0])
+
+    def _log_rho_density_at_z(self, zeta: np.ndarray) -> np.ndarray:
+        one_minus, one_plus = _one_minus_plus_tanh(zeta)
+        return self._log_z_density_cubic(zeta) - np.log(one_minus) - np.log(one_plus)
+
+    def _equal_density_ends(self, mass: float, start: np.ndarray) -> np.ndarray | None:
+        """The ends (in zeta) of the interval holding ``mass`` whose end densities of rho are equal, by
+        Newton's method on both ends at once from ``start``; None if it does not settle inside the grid.
+
+        The two equations are ``C(lo) + S(hi) = 1 - mass`` (C the cumulative curve, S the survival curve)
+        and ``L(lo) = L(hi)`` (L the log density of rho, ``log f_zeta(z) - log(1 - tanh^2 z)``, whose
+        derivative is ``(log f_zeta)'(z) + 2 tanh z``). A step is halved until the next Newton step, taken
+        with the same derivatives, is shorter than it (Deuflhard's natural monotonicity test, which does
+        not depend on how the two equations are scaled).
+        """
+        spare = 1.0 - mass
+        first, last = float(self.z[0]), float(self.z[-1])
+        cdf, sf, log_density = self._cdf_cubic, self._sf_cubic, self._log_z_density_cubic
+
+        def log_rho_density(zeta: float) -> tuple[float, float]:
+            """L and its derivative; ``1 -/+ tanh(zeta)`` formed as in ``_one_minus_plus_tanh``."""
+            value, slope = log_density.at(zeta)
+            one_minus, one_plus = 2.0 / (1.0 + math.exp(2.0 * zeta)), 2.0 / (1.0 + math.exp(-2.0 * zeta))
+            return value - math.log(one_minus) - math.log(one_plus), slope + 2.0 * math.tanh(zeta)
+
+        def equations(lo: float, hi: float) -> tuple[float, float, tuple[float, float, float, float]]:
+            """The two residuals and their derivatives in (lo, hi), row by row."""
+            below, below_slope = cdf.at(lo)
+            above, above_slope = sf.at(hi)
+            level_lo, slope_lo = log_rho_density(lo)
+            level_hi, slope_hi = log_rho_density(hi)
+            return below + above - spare, level_lo - level_hi, (below_slope, above_slope, slope_lo, -slope_hi)
+
+        def solve(jacobian: tuple[float, float, float, float], f: float, g: float) -> tuple[float, float]:
+            """The step (d_lo, d_hi) with jacobian @ step = -(f, g), by Cramer's rule."""
+            a, b, c, d = jacobian
+            determinant = a * d - b * c
+            return (-f * d + b * g) / determinant, (-a * g + c * f) / determinant
+
+        lo, hi = float(start[0]), float(start[1])
+        f, g, jacobian = equations(lo, hi)
+        for _ in range(60):
+            try:
+                step_lo, step_hi = solve(jacobian, f, g)
+            except ZeroDivisionError:
+                return None
+            if not (math.isfinite(step_lo) and math.isfinite(step_hi)):
+                return None
+            if abs(step_lo) <= 1e-15 * (1.0 + abs(lo)) and abs(step_hi) <= 1e-15 * (1.0 + abs(hi)):
+                return np.array([lo, hi])
+            length = max(abs(step_lo), abs(step_hi))
+            for _ in range(40):
+                trial_lo, trial_hi = lo + step_lo, hi + step_hi
+                if first < trial_lo < trial_hi < last:
+                    trial = equations(trial_lo, trial_hi)
+                    following = solve(jacobian, trial[0], trial[1])
+                    if max(abs(following[0]), abs(following[1])) < length:
+                        break
+                step_lo, step_hi = 0.5 * step_lo, 0.5 * step_hi
+            else:
+                return None
+            lo, hi = trial_lo, trial_hi
+            f, g, jacobian = trial
+        return None
 
     # ------------------------------------------------------------------ summaries
 
-    @property
+    @cached_property
     def mean(self) -> float:
         """Posterior mean of rho."""
         return self._trapezoid(self.rho * self.z_density)
 
-    @property
+    @cached_property
     def sd(self) -> float:
         """Posterior standard deviation of rho."""
         centred = self.rho - self.mean
         return math.sqrt(self._trapezoid(centred * centred * self.z_density))
 
-    @property
+    @cached_property
     def median(self) -> float:
         """Posterior median of rho."""
         return float(self.quantile(0.5))
@@ -795,7 +981,7 @@ class ExactPosterior:
         """
         values = np.asarray(x, dtype=float)
         zeta = self._z_of(values)
-        out = np.clip(self._cdf_spline(np.clip(zeta, self.z[0], self.z[-1])), 0.0, 1.0)
+        out = np.clip(self._cdf_cubic(np.clip(zeta, self.z[0], self.z[-1])), 0.0, 1.0)
         out = np.where(zeta <= self.z[0], 0.0, np.where(zeta >= self.z[-1], 1.0, out))
         out = np.where(np.isnan(values), np.nan, out)
         return _as_output(np.asarray(out, dtype=float), values.ndim == 0)
@@ -815,7 +1001,7 @@ class ExactPosterior:
         """
         values = np.asarray(x, dtype=float)
         zeta = self._z_of(values)
-        out = np.clip(self._sf_spline(np.clip(zeta, self.z[0], self.z[-1])), 0.0, 1.0)
+        out = np.clip(self._sf_cubic(np.clip(zeta, self.z[0], self.z[-1])), 0.0, 1.0)
         out = np.where(zeta <= self.z[0], 1.0, np.where(zeta >= self.z[-1], 0.0, out))
         out = np.where(np.isnan(values), np.nan, out)
         return _as_output(np.asarray(out, dtype=float), values.ndim == 0)
@@ -841,12 +1027,86 @@ class ExactPosterior:
         probs = np.asarray(q, dtype=float)
         if not np.all((probs >= 0.0) & (probs <= 1.0)):
             raise ValueError("quantile probabilities must lie in [0, 1]")
-        flat = probs.reshape(-1)
+        if probs.ndim == 0:  # the same few (the median, the interval's ends) are asked for again and again
+            key = float(probs)
+            if key not in self._quantiles_asked:
+                self._quantiles_asked[key] = (float(np.tanh(self._one_quantile_z(key))) if 0.0 < key < 1.0
+                                              else -1.0 if key == 0.0 else 1.0)
+            return self._quantiles_asked[key]
+        return self._rho_quantiles(probs.reshape(-1)).reshape(probs.shape)
+
+    @cached_property
+    def _quantiles_asked(self) -> dict[float, float]:
+        return {}
+
+    def _rho_quantiles(self, flat: np.ndarray) -> np.ndarray:
         out = np.where(flat == 0.0, -1.0, 1.0)
         inside = (flat > 0.0) & (flat < 1.0)
         if inside.any():
             out[inside] = np.tanh(self._quantile_z(flat[inside]))
+        return out
+
+    def squared_quantile(self, q: ArrayLike) -> float | np.ndarray:
+        """Posterior quantile of rho^2.
+
+        ``P(rho^2 <= t) = cdf(sqrt t) - cdf(-sqrt t)``, which in ``u = atanh(sqrt t)`` is
+        ``P(|atanh(rho)| <= u) = C(u) - C(-u)`` with ``C`` the cumulative curve of ``atanh(rho)``.
+        Each q is bracketed between two points of a table of that probability, and the crossing found
+        as for :meth:`quantile`, with the derivative ``C'(u) + C'(-u)``. The quantile is the smallest ``t`` with
+        ``P(rho^2 <= t) >= q``: 0 for q = 0, also when the posterior keeps away from 0.
+
+        Parameters
+        ----------
+        q : float or array_like
+            Probabilities in [0, 1].
+
+        Returns
+        -------
+        float or numpy.ndarray
+            A float for scalar input, otherwise an array of the same shape.
+
+        Raises
+        ------
+        ValueError
+            If any ``q`` is outside [0, 1] or not a number.
+        """
+        probs = np.asarray(q, dtype=float)
+        if not np.all((probs >= 0.0) & (probs <= 1.0)):
+            raise ValueError("quantile probabilities must lie in [0, 1]")
+        flat = probs.reshape(-1)
+        points, table = self._abs_z_table
+        above = np.searchsorted(table, flat, side="left")  # the first point where the probability reaches q
+        # q = 0 gives 0; q beyond the table (1, up to rounding) gives 1
+        out = np.where(above == 0, 0.0, 1.0)
+        inside = (above > 0) & (above < points.size)
+        if inside.any():
+            upper = points[above[inside]]
+            lower = points[above[inside] - 1]
+            goal = flat[inside]
+            f_lower = self._abs_z_cdf(lower)[0] - goal
+            f_upper = self._abs_z_cdf(upper)[0] - goal
+            found = np.where(f_upper <= 0.0, upper, lower)
+            bracketed = (f_lower < 0.0) & (f_upper > 0.0)
+            if bracketed.any():
+                found[bracketed] = _roots_in_brackets(self._abs_z_cdf, lower[bracketed], upper[bracketed],
+                                                      f_lower[bracketed], f_upper[bracketed], goal[bracketed])
+            squared = np.tanh(found) ** 2
+            # q reached exactly at a point (1 where the cumulative curve rounds to 1): the first t reaching it
+            reached = (f_lower < 0.0) & (f_upper == 0.0)
+            if reached.any():
+                squared[reached] = self._first_squared_reaching(np.tanh(lower[reached]) ** 2,
+                                                                np.tanh(upper[reached]) ** 2, goal[reached])
+            out[inside] = squared
         return _as_output(out.reshape(probs.shape), probs.ndim == 0)
+
+    def _first_squared_reaching(self, low: np.ndarray, high: np.ndarray, goal: np.ndarray) -> np.ndarray:
+        """The smallest t in [low, high] with P(rho^2 <= t) >= goal, by bisection: where that probability is
+        flat at its goal (rounded to 1) Newton's method has no crossing to find."""
+        for _ in range(60):
+            middle = 0.5 * (low + high)
+            below = self._abs_z_cdf(self._z_of(np.sqrt(middle)))[0] < goal
+            low, high = np.where(below, middle, low), np.where(below, high, middle)
+        return 0.5 * (low + high)
 
     def prob_below(self, t: float) -> float:
         """Posterior probability that rho < t (equal to ``cdf(t)``)."""
@@ -879,8 +1139,10 @@ class ExactPosterior:
 
         The shortest interval holding ``mass`` of the posterior, found as the
         interval whose end points have equal density (exact for a unimodal
-        posterior). If no such pair is found, the shortest interval is
-        searched for directly.
+        posterior): by Newton's method on both ends from the equal-tailed
+        interval, or, should that not settle, by Brent's method on the mass
+        below the interval. If no such pair exists (the density is highest at
+        an end of the grid), the shortest interval is searched for directly.
 
         Parameters
         ----------
@@ -900,11 +1162,17 @@ class ExactPosterior:
             return float(lo), float(hi)
 
         def density_gap(alpha: float) -> float:
-            lo, hi = ends(alpha)
-            return self._log_rho_density_at_z(lo) - self._log_rho_density_at_z(hi)
+            lower, upper = self._log_rho_density_at_z(self._quantile_z(np.array([alpha, alpha + mass])))
+            return float(lower - upper)
 
-        g_lo, g_hi = density_gap(0.0), density_gap(spare)
+        # the intervals starting at the lower end and ending at the upper end, and the equal-tailed one
+        quantiles = self._quantile_z(np.array([0.0, mass, spare, 1.0, 0.5 * spare, 1.0 - 0.5 * spare]))
+        levels = self._log_rho_density_at_z(quantiles[:4])
+        g_lo, g_hi = float(levels[0] - levels[1]), float(levels[2] - levels[3])
         if g_lo < 0.0 < g_hi:
+            found = self._equal_density_ends(mass, quantiles[4:])
+            if found is not None:
+                return math.tanh(found[0]), math.tanh(found[1])
             alpha = optimize.brentq(density_gap, 0.0, spare, xtol=1e-15, rtol=1e-14)
         else:
 
@@ -944,7 +1212,7 @@ class ExactPosterior:
         ok = (np.abs(flat) < 1.0) & (zeta >= self.z[0]) & (zeta <= self.z[-1])
         if np.any(ok):
             xs = flat[ok]
-            out[ok] = np.exp(self._log_z_density_spline(zeta[ok]) - np.log1p(-xs) - np.log1p(xs))
+            out[ok] = np.exp(self._log_z_density_cubic(zeta[ok]) - np.log1p(-xs) - np.log1p(xs))
         out[np.isnan(flat)] = np.nan
         return _as_output(out.reshape(values.shape), values.ndim == 0)
 
@@ -997,6 +1265,11 @@ def exact_posterior(
     Returns
     -------
     ExactPosterior
+        Immutable. The last few are kept and handed out again for equal
+        arguments (one pair's report asks for its posterior in several
+        places), and the kernel terms of the last few grids are reused for
+        other priors on rho of the same data: the numbers are those of a
+        posterior computed afresh.
 
     Raises
     ------
@@ -1011,17 +1284,30 @@ def exact_posterior(
         raise ValueError(f"grid_size must be an integer of at least {_MIN_GRID_SIZE}")
     grid_size = int(grid_size)
 
-    zeta, log_f = _adaptive_grid(case, a, b, grid_size)
+    return _posterior(case, a, b, grid_size, sd_prior)
+
+
+@functools.lru_cache(maxsize=_GRID_CACHE_SIZE)
+def _log_kernel_at_zero(case: _Case) -> float:
+    """log h(0), the Bayes factor's denominator: the same for every prior on rho."""
+    return float(_log_kernel_from_parts(np.ones(1), np.ones(1), case)[0])
+
+
+@functools.lru_cache(maxsize=_POSTERIOR_CACHE_SIZE)
+def _posterior(case: _Case, a: float, b: float, grid_size: int, sd_prior: str) -> ExactPosterior:
+    """The posterior for checked arguments; the last few are kept, as one pair's report asks for its
+    posterior in several places (its numbers, the predictive check, the influence and sensitivity checks)."""
+    terms, log_f = _adaptive_grid(case, a, b, grid_size)
+    zeta = terms.zeta
     step = float(zeta[1] - zeta[0])
     peak = float(log_f.max())
     scaled = np.exp(log_f - peak)
     log_norm_rel = peak + math.log(step * (float(np.sum(scaled)) - 0.5 * (scaled[0] + scaled[-1])))
     log_norm = log_norm_rel + _log_powers_at(case.centre, case)
-    log_h0 = float(_log_kernel_from_parts(np.ones(1), np.ones(1), case)[0])
+    log_h0 = _log_kernel_at_zero(case)
 
-    one_minus, one_plus = _one_minus_plus_tanh(zeta)
     log_z_density = log_f - log_norm_rel
-    log_density = log_z_density - np.log(one_minus) - np.log(one_plus)
+    log_density = log_z_density - terms.log_one_minus - terms.log_one_plus
     arrays = {
         "z": zeta,
         "rho": np.tanh(zeta),

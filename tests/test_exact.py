@@ -505,6 +505,94 @@ def test_null_r_posterior_matches_scipy_beta(n: int, a: float, b: float) -> None
     assert hi == pytest.approx(ref_hi, abs=1e-7 * ref.std())
 
 
+@pytest.mark.parametrize(("n", "a", "b"), [(9, 1.0, 1.0), (30, 0.5, 0.5), (10**5, 1.0, 1.0)])
+def test_squared_quantiles_at_null_r_match_scipy_beta(n: int, a: float, b: float) -> None:
+    """At r = 0 with a symmetric prior rho is a stretched Beta symmetric about 0 (null_r_posterior), so
+    P(rho^2 <= s^2) = 1 - 2 P(rho > s) and the q-quantile of rho^2 is scipy's isf((1 - q) / 2) squared."""
+    ref = null_r_posterior(n, a, b)
+    post = exact_posterior(n, 0.0, a, b)
+    q = np.array([1e-6, 0.025, 0.5, 0.975, 1 - 1e-6])
+    np.testing.assert_allclose(np.sqrt(post.squared_quantile(q)), ref.isf((1 - q) / 2), rtol=1e-8,
+                               atol=1e-9 * ref.std())
+    assert post.squared_quantile(0.0) == 0.0
+    assert float(post.squared_quantile(1 - 1e-6)) <= float(post.squared_quantile(1.0)) <= 1.0
+
+
+def test_squared_quantiles_of_a_skewed_posterior_match_scipy_beta_by_brentq() -> None:
+    """Stretched Beta(2 + 12, 5 + 12) at r = 0, n = 25: the t with F(sqrt t) - F(-sqrt t) = q, F scipy's beta
+    cdf, found by scipy's brentq."""
+    n, a, b = 25, 2.0, 5.0
+    ref = null_r_posterior(n, a, b)
+    post = exact_posterior(n, 0.0, a, b)
+    for q in (0.025, 0.3, 0.5, 0.975):
+        expected = optimize.brentq(lambda t, q=q: ref.cdf(math.sqrt(t)) - ref.cdf(-math.sqrt(t)) - q, 0.0, 1.0,
+                                   xtol=1e-16, rtol=1e-14)
+        assert float(post.squared_quantile(q)) == pytest.approx(expected, rel=1e-7)
+
+
+@pytest.mark.parametrize(("n", "r"), [(6, 0.95), (50, -0.9), (1000, 0.3), (10**6, 0.05)])
+def test_squared_quantiles_invert_the_cdf_of_rho(n: int, r: float) -> None:
+    """P(rho^2 <= t) = cdf(sqrt t) - cdf(-sqrt t) (common practice) at the quantiles found, posteriors
+    far from and near to 0."""
+    post = exact_posterior(n, r)
+    q = np.linspace(0.001, 0.999, 23)
+    root = np.sqrt(post.squared_quantile(q))
+    np.testing.assert_allclose(post.cdf(root) - post.cdf(-root), q, rtol=0, atol=1e-10)
+    with pytest.raises(ValueError, match="lie in"):
+        post.squared_quantile(1.5)
+
+
+@pytest.mark.parametrize(("n", "r", "a", "b"),
+                         [(5, 0.9, 1.0, 1.0), (12, -0.85, 2.0, 5.0), (40, 0.6, 0.5, 0.5), (1000, 0.3, 1.0, 1.0),
+                          (10**6, 0.99, 1.0, 1.0)])
+def test_hdi_is_the_shortest_interval_found_by_scipy(n: int, r: float, a: float, b: float) -> None:
+    """The HDI against the shortest of the intervals between the alpha and alpha + mass quantiles, searched
+    over alpha by scipy's bounded minimize_scalar (the definition, Box & Tiao 1973, ch. 2)."""
+    post = exact_posterior(n, r, a, b)
+    mass = 0.9
+
+    def width(alpha: float) -> float:
+        lo, hi = post.quantile(np.array([alpha, alpha + mass]))
+        return float(hi - lo)
+
+    best = optimize.minimize_scalar(width, bounds=(1e-12, 1 - mass - 1e-12), method="bounded",
+                                    options={"xatol": 1e-14}).x
+    lo, hi = post.hdi(mass)
+    expected = post.quantile(np.array([best, best + mass]))
+    np.testing.assert_allclose((lo, hi), expected, rtol=0, atol=1e-6 * post.sd)
+    assert hi - lo <= width(best) + 1e-12
+    assert post.prob_between(lo, hi) == pytest.approx(mass, abs=1e-10)
+    assert post.density_at(lo) == pytest.approx(post.density_at(hi), rel=1e-8)
+
+
+def test_a_single_quantile_equals_the_same_quantile_among_many() -> None:
+    """A scalar probability takes a path of its own (Python floats): it must give the array path's value."""
+    for n, r in ((4, -0.3), (60, 0.8), (10**5, 0.999)):
+        post = exact_posterior(n, r, 2.0, 1.0)
+        q = np.array([1e-12, 1e-4, 0.025, 0.5, 0.7, 0.975, 1 - 1e-9])
+        together = post.quantile(q)
+        assert [post.quantile(float(p)) for p in q] == together.tolist()
+        assert post.median == together[3]
+
+
+def test_the_same_posterior_is_handed_out_and_reused_terms_change_nothing() -> None:
+    """Equal arguments give the same immutable posterior; a posterior built after another prior on the same
+    data (its kernel terms reused) equals one built from nothing, array for array."""
+    from reportgen import exact
+
+    first = exact_posterior(200, 0.41, 1.0, 1.0)
+    assert exact_posterior(200, 0.41) is first
+    assert not first.density.flags.writeable and not first.z.flags.writeable
+    warm = exact_posterior(200, 0.41, 5.0, 5.0)
+    exact._posterior.cache_clear()
+    exact._grid_terms.cache_clear()
+    cold = exact_posterior(200, 0.41, 5.0, 5.0)
+    assert cold is not warm
+    for name in ("z", "rho", "density", "z_density"):
+        np.testing.assert_array_equal(getattr(warm, name), getattr(cold, name))
+    assert warm.log_bf10 == cold.log_bf10
+
+
 def test_hdi_is_shortest_interval_and_quantiles_round_trip() -> None:
     """For a skewed posterior the HDI holds the mass, has equal end densities and is no
     wider than the equal-tailed interval (Box & Tiao 1973, ch. 2; section from memory);

@@ -118,10 +118,18 @@ def _sample_correlation(x: np.ndarray, y: np.ndarray) -> float:
 
 
 def _sample_skewness(values: np.ndarray) -> float:
+    """g1 = m3 / m2^1.5 (scipy.stats.skew with bias=True, without its per-call overhead); nan for a column
+    whose spread is lost in rounding against its mean, as scipy gives."""
     # a constant column has no skewness; scipy would warn and return nan or a rounding artefact
     if np.ptp(values) == 0.0:
         return float("nan")
-    return float(stats.skew(values, bias=True))
+    mean = float(np.mean(values))
+    deviations = values - mean
+    squares = deviations * deviations
+    m2 = float(np.mean(squares))
+    if m2 <= (np.finfo(float).eps * mean) ** 2:
+        return float("nan")
+    return float(np.mean(squares * deviations)) / m2**1.5
 
 
 def _evenly_spaced(draws: np.ndarray, count: int) -> np.ndarray:

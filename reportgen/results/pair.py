@@ -352,8 +352,7 @@ def _result_from_posterior(
         nan = float("nan")
         check = dataclasses.replace(check, exact_mean=nan, exact_sd=nan, exact_lower=nan, exact_upper=nan,
                                     mean_gap=nan)
-    r2_median = float(_squared_quantiles(posterior, np.array([0.5]))[0])
-    r2_interval = _squared_interval(posterior, mass, document.summary.interval)
+    r2_median, r2_interval = _squared_summary(posterior, mass, document.summary.interval)
     sx, sy = data.stats.sd_x, data.stats.sd_y
     covariance = np.array([[sx * sx, rho.mean * sx * sy], [rho.mean * sx * sy, sy * sy]])
     return _assemble(
@@ -367,8 +366,11 @@ def _result_from_posterior(
 
 
 def _squared_quantiles(posterior: Any, probabilities: np.ndarray) -> np.ndarray:
-    """Quantiles of rho^2 from a posterior of rho: P(rho^2 <= t) = cdf(sqrt t) - cdf(-sqrt t), by bisection
-    on all probabilities at once."""
+    """Quantiles of rho^2 from a posterior of rho: P(rho^2 <= t) = cdf(sqrt t) - cdf(-sqrt t). The exact
+    posterior inverts that on its own grid; another posterior of rho by bisection on all probabilities at
+    once."""
+    if isinstance(posterior, exact.ExactPosterior):
+        return np.asarray(posterior.squared_quantile(probabilities), dtype=float)
     low, high = np.zeros_like(probabilities), np.ones_like(probabilities)
     for _ in range(60):
         mid = 0.5 * (low + high)
@@ -379,17 +381,18 @@ def _squared_quantiles(posterior: Any, probabilities: np.ndarray) -> np.ndarray:
     return 0.5 * (low + high)
 
 
-def _squared_interval(posterior: Any, mass: float, kind: str) -> tuple[float, float]:
-    """The interval of rho^2 of the report's kind: equal-tailed, or the shortest of the intervals holding
-    ``mass`` between two quantiles (the highest-density interval of a unimodal density, to 1/400 in mass)."""
+def _squared_summary(posterior: Any, mass: float, kind: str) -> tuple[float, tuple[float, float]]:
+    """The median of rho^2 and its interval of the report's kind: equal-tailed, or the shortest of the
+    intervals holding ``mass`` between two quantiles (the highest-density interval of a unimodal density, to
+    1/400 in mass). All the quantiles are found in one call."""
     if kind != "hdi":
-        lower, upper = _squared_quantiles(posterior, np.array([(1 - mass) / 2, (1 + mass) / 2]))
-        return float(lower), float(upper)
+        median, lower, upper = _squared_quantiles(posterior, np.array([0.5, (1 - mass) / 2, (1 + mass) / 2]))
+        return float(median), (float(lower), float(upper))
     starts = np.linspace(0.0, 1.0 - mass, 401)
-    ends = _squared_quantiles(posterior, np.concatenate([starts, starts + mass]))
-    lowers, uppers = ends[:starts.size], ends[starts.size:]
+    found = _squared_quantiles(posterior, np.concatenate([[0.5], starts, np.minimum(starts + mass, 1.0)]))
+    lowers, uppers = found[1:starts.size + 1], found[starts.size + 1:]
     best = int(np.argmin(uppers - lowers))
-    return float(lowers[best]), float(uppers[best])
+    return float(found[0]), (float(lowers[best]), float(uppers[best]))
 
 
 def _assemble(
