@@ -15,7 +15,7 @@ from scipy import integrate, stats
 import reportgen
 from reportgen.errors import DataError, ReportgenError, SpecError
 from reportgen.runner import TEXT_COLUMNS
-from tests.conftest import correlated_frame, write_spec
+from tests.conftest import correlated_frame, pages_not_drawn, write_spec
 
 RULES = """
 [[rules]]
@@ -52,7 +52,8 @@ def file_run(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, pd.DataFra
         x = "a"
         y = "c"
     """ + RULES)
-    returned = reportgen.run(spec, folder / "out", engine="exact")
+    with pages_not_drawn():  # these tests read the results and the record, no page of the report
+        returned = reportgen.run(spec, folder / "out", engine="exact")
     return folder, frame, returned
 
 
@@ -87,6 +88,7 @@ def test_sample_r_and_n_match_scipy(file_run: tuple[Path, pd.DataFrame, pd.DataF
     assert row["sample_r"] == pytest.approx(stats.pearsonr(complete["a"], complete["b"]).statistic, abs=1e-12)
 
 
+@pytest.mark.usefixtures("placeholder_pdf")
 def test_dataframe_gives_the_file_results(file_run: tuple[Path, pd.DataFrame, pd.DataFrame]) -> None:
     folder, frame, from_file = file_run
     # the spec still names data.csv, but the DataFrame replaces it (the file is removed to prove it)
@@ -107,6 +109,7 @@ def test_dataframe_gives_the_file_results(file_run: tuple[Path, pd.DataFrame, pd
     assert reproducible["data_sha256"] == hashlib.sha256((folder / "data.csv").read_bytes()).hexdigest()
 
 
+@pytest.mark.usefixtures("placeholder_pdf")
 def test_overrides_reach_the_record(tmp_path: Path) -> None:
     frame = correlated_frame(30, 0.3, seed=3)
     frame.to_csv(tmp_path / "data.csv", index=False)

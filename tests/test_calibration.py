@@ -121,6 +121,7 @@ def test_exact_calibration_catches_an_overconfident_posterior() -> None:
     assert not result.is_uniform(LEVEL), (result.chi2_p_value, result.ks_p_value)
 
 
+@pytest.mark.usefixtures("draws_without_netcdf")  # the ranks need the draws of rho, not the draws file
 @pytest.mark.parametrize(("n", "prior", "replications"), SAMPLER_SETTINGS)
 def test_sampler_ranks_of_true_rho_are_uniform(n: int, prior: str, replications: int) -> None:
     result = _sampled(n, prior, replications)
@@ -129,6 +130,7 @@ def test_sampler_ranks_of_true_rho_are_uniform(n: int, prior: str, replications:
     assert result.is_uniform(LEVEL), result.counts
 
 
+@pytest.mark.usefixtures("draws_without_netcdf")
 def test_sampler_calibration_catches_a_wrong_prior() -> None:
     """Caught: rho drawn near +1 at n = 5 but fitted under the uniform prior (same size as above)."""
     result = _sampled(5, "near+1", 100, fit_rho_prior=UNIFORM)

@@ -19,7 +19,7 @@ from reportgen.runner import run
 from reportgen.runs.compare import changes_rows, compare_runs, data_change, summary_lines
 from reportgen.runs.snapshot import RunSnapshot, load_run, rho_posterior
 from reportgen.spec import load_spec
-from tests.conftest import correlated_frame
+from tests.conftest import correlated_frame, pages_not_drawn
 from tests.test_difference import STEP, convolved, reference_density, reference_summary
 
 MARGIN = 0.1
@@ -100,9 +100,10 @@ def runs(tmp_path_factory: pytest.TempPathFactory) -> dict[str, RunSnapshot]:
     edited.loc[3, "d"] = 5.0
     edited_bytes = csv_bytes(pd.concat([edited, ADDED_ROWS], ignore_index=True))
     pairs = [("a", "b"), ("a", "c")]
-    return {"old": make_run(base / "old", old_bytes, 2.0, pairs, "2026-10-31"),
-            "new": make_run(base / "new", new_bytes, 3.0, pairs + [("a", "d")], "2026-11-30"),
-            "edited": make_run(base / "edited", edited_bytes, 3.0, pairs + [("a", "d")], "2026-11-30")}
+    with pages_not_drawn():  # the comparison reads the records and results, no page of a report
+        return {"old": make_run(base / "old", old_bytes, 2.0, pairs, "2026-10-31"),
+                "new": make_run(base / "new", new_bytes, 3.0, pairs + [("a", "d")], "2026-11-30"),
+                "edited": make_run(base / "edited", edited_bytes, 3.0, pairs + [("a", "d")], "2026-11-30")}
 
 
 def data_file(snapshot: RunSnapshot) -> Path:

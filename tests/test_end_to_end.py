@@ -58,6 +58,18 @@ def project(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return folder
 
 
+@pytest.fixture(scope="module")
+def two_pairs(project: Path) -> Path:
+    """The project's spec without its pair set: the two explicit pairs, one of them with dropped rows (a run
+    costs seconds of figures and PDF pages per pair)."""
+    spec = project / "two_pairs.toml"
+    set_table = '[[pair_sets]]\nname = "Trio"\ncolumns = ["b", "c", "d"]\n'
+    text = (project / "spec.toml").read_text(encoding="utf-8")
+    assert text.count(set_table) == 1
+    spec.write_text(text.replace(set_table, ""), encoding="utf-8")
+    return spec
+
+
 def invoke(*args: str) -> object:
     return CliRunner().invoke(main, list(args), catch_exceptions=False)
 
@@ -166,9 +178,43 @@ def test_check_validates_without_fitting(project: Path) -> None:
     assert "5 pair(s)" in result.output
 
 
-def test_failed_diagnostics_exit_1_and_say_so_on_page_one(tmp_path: Path) -> None:
+# Pairs of the bundled demo that take the same path through fitting and the report as a pair kept: two more
+# explicit pairs whose robust fit leads (as for turbidity), one whose normal fit leads (as for the nutrient
+# pairs), and one column of the pair set (the set still makes a pair, with drop-outs and a borderline verdict).
+# Each pair costs pages of figures in three monthly reports; the rank, grouped and controlled pairs all stay.
+DEMO_REPEATS = (
+    ('[[pairs]]\nx = "water_temp_c"\ny = "dissolved_oxygen_mg_l"\n\n', ""),
+    ('[[pairs]]\nx = "ph"\ny = "conductivity_us_cm"\n\n', ""),
+    ('[[pairs]]\nx = "rainfall_24h_mm"\ny = "e_coli_cfu_100ml"\nlabel = "Rainfall and bacterial load"\n\n', ""),
+    ('columns = ["nitrate_mg_l", "phosphate_mg_l", "chlorophyll_ug_l"]',
+     'columns = ["phosphate_mg_l", "chlorophyll_ug_l"]'),
+)
+
+
+def demo_without_repeats(folder: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The bundled demo's three monthly specs and data in ``folder``, less ``DEMO_REPEATS``; the demo command
+    then runs these."""
+    from reportgen import cli
+
+    folder.mkdir()
+    months = []
+    for spec_path, period in cli.DEMO_MONTHS:
+        text = spec_path.read_text(encoding="utf-8")
+        for repeated, kept in DEMO_REPEATS:
+            assert text.count(repeated) == 1, (spec_path.name, repeated)
+            text = text.replace(repeated, kept)
+        (folder / spec_path.name).write_text(text, encoding="utf-8")
+        months.append((folder / spec_path.name, period))
+    for data in spec_path.parent.glob("*.csv"):
+        (folder / data.name).write_bytes(data.read_bytes())
+    monkeypatch.setattr(cli, "DEMO_MONTHS", tuple(months))
+    monkeypatch.setattr(cli, "DEMO_SPEC", months[-1][0])
+
+
+def test_failed_diagnostics_exit_1_and_say_so_on_page_one(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     """Too few draws for the demo's ESS >= 400 threshold: the reports are written and flag it. The demo is
     three monthly runs, each compared with the month before, then a change report and a history."""
+    demo_without_repeats(tmp_path / "specs", monkeypatch)
     result = CliRunner().invoke(main, ["demo", "--out", str(tmp_path / "demo"), "--draws", "60",
                                        "--tune", "60", "--chains", "2"])
     assert result.exit_code == 1, result.output
@@ -206,17 +252,18 @@ def test_pdf_renderer_refuses_files_and_network() -> None:
     assert b"root:" not in pdf
 
 
-def test_exact_engine_reports_the_quadrature_numbers(project: Path) -> None:
+def test_exact_engine_reports_the_quadrature_numbers(project: Path, two_pairs: Path) -> None:
     """`--engine exact`: a consistency check that the CSV carries reportgen.exact's numbers, with no
     sampler and no draws folder (the engine itself is checked against independent integration in
     test_exact.py)."""
     from reportgen.exact import exact_posterior
 
     out = project / "exact"
-    result = invoke("run", str(project / "spec.toml"), "--out", str(out), "--engine", "exact")
+    result = invoke("run", str(two_pairs), "--out", str(out), "--engine", "exact")
     assert result.exit_code == 0, result.output
     assert not (out / "draws").exists()
     rows = list(csv.DictReader((out / "results.csv").open(encoding="utf-8")))
+    assert [row["pair"] for row in rows] == ["a vs b", "a vs c"] and rows[1]["n_dropped"] == "3"
     for row in rows:
         reference = exact_posterior(int(row["n"]), float(row["sample_r"]))
         assert float(row["rho_mean"]) == pytest.approx(reference.mean, abs=1e-12)
@@ -229,7 +276,8 @@ def test_exact_engine_reports_the_quadrature_numbers(project: Path) -> None:
     assert "exact engine" in text
 
 
-def test_a_crashing_sampler_fails_one_pair_not_the_run(project: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_a_crashing_sampler_fails_one_pair_not_the_run(project: Path, two_pairs: Path,
+                                                       monkeypatch: pytest.MonkeyPatch) -> None:
     from reportgen.fit import Fitter
 
     original = Fitter.fit
@@ -241,7 +289,7 @@ def test_a_crashing_sampler_fails_one_pair_not_the_run(project: Path, monkeypatc
 
     monkeypatch.setattr(Fitter, "fit", flaky)
     out = project / "flaky"
-    result = CliRunner().invoke(main, ["run", str(project / "spec.toml"), "--out", str(out)])
+    result = CliRunner().invoke(main, ["run", str(two_pairs), "--out", str(out)])
     assert result.exit_code == 1
     rows = {row["pair"]: row for row in csv.DictReader((out / "results.csv").open(encoding="utf-8"))}
     assert rows["a vs c"]["status"] == "fail" and "simulated sampler crash" in rows["a vs c"]["status_reasons"]

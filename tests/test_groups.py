@@ -204,6 +204,7 @@ def test_bad_grouping_data_is_refused(tmp_path, body: str, words: str) -> None: 
         load_pairs(spec, load_table(spec))
 
 
+@pytest.mark.usefixtures("placeholder_pdf")  # the HTML and the results are read
 def test_the_report_leads_with_the_warning_and_shows_the_groups(tmp_path) -> None:  # type: ignore[no-untyped-def]
     import reportgen
 

@@ -27,6 +27,7 @@ columns = ["a", "b", "c"]
 """
 
 
+@pytest.mark.usefixtures("placeholder_pdf")  # the results and the figure drawn are read
 def test_the_listed_pair_is_fitted_once_and_shown_in_the_matrix(tmp_path: Path,
                                                               monkeypatch: pytest.MonkeyPatch) -> None:
     rng = np.random.default_rng(3)

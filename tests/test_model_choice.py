@@ -16,7 +16,7 @@ from scipy import stats
 
 from reportgen.cli import main
 from reportgen.results.table import MODEL_CHECK_COLUMNS
-from tests.conftest import write_spec
+from tests.conftest import pages_not_drawn, write_spec
 
 ANSCOMBE_X = [10, 8, 13, 9, 11, 14, 6, 4, 12, 7, 5]
 ANSCOMBE_Y1 = [8.04, 6.95, 7.58, 8.81, 8.33, 9.96, 7.24, 4.26, 10.84, 4.82, 5.68]
@@ -62,7 +62,8 @@ def planted(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, int]:
 @pytest.fixture(scope="module")
 def planted_run(planted: tuple[Path, int]) -> Path:
     folder, _ = planted
-    result = CliRunner().invoke(main, ["run", str(folder / "spec.toml"), "--out", str(folder / "out")])
+    with pages_not_drawn():  # these tests read results.csv and the record
+        result = CliRunner().invoke(main, ["run", str(folder / "spec.toml"), "--out", str(folder / "out")])
     assert result.exit_code in (0, 1), result.output
     return folder / "out"
 
@@ -121,6 +122,7 @@ def _anscombe_project(folder: Path, y: list[float], engine: str) -> Path:
     return folder / "spec.toml"
 
 
+@pytest.mark.usefixtures("placeholder_pdf")  # results.csv is read
 def test_anscombe_three_is_flagged_and_its_robust_rho_is_near_one(tmp_path: Path) -> None:
     """Anscombe (1973) set III: ten points on a line and one outlier (x = 13, y = 12.74, line 4 of the
     CSV); r = 0.816 with it (scipy.stats.pearsonr), 0.99999 without. The Student-t fit leads, near 1."""
@@ -134,6 +136,7 @@ def test_anscombe_three_is_flagged_and_its_robust_rho_is_near_one(tmp_path: Path
     assert float(row["rho_median"]) > 0.95
 
 
+@pytest.mark.usefixtures("placeholder_pdf")  # results.csv is read
 def test_anscombe_one_gets_no_flag_and_the_normal_fit_leads(tmp_path: Path) -> None:
     """Anscombe (1973) set I is the well-behaved one: no influential or outlying row, so under
     model = "auto" (exact engine: the rank model is the robust fit) the normal model leads."""
@@ -156,6 +159,7 @@ def test_student_t_with_the_exact_engine_is_refused(tmp_path: Path) -> None:
     assert not (tmp_path / "out").exists()
 
 
+@pytest.mark.usefixtures("placeholder_pdf")  # results.csv is read
 def test_rank_model_per_pair_matches_kendall(tmp_path: Path) -> None:
     """A monotone curve: the rank model's rho on Pearson's scale is sin(pi tau / 2) of scipy.stats.kendalltau's
     tau-b (Greiner's relation; Kruskal 1958), well above the sample Pearson r."""

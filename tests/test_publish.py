@@ -32,6 +32,10 @@ from reportgen.runs import publish
 
 point = os.environ["REPORTGEN_TEST_POINT"]
 calls = []
+if os.environ.get("REPORTGEN_TEST_PLACEHOLDER_PDF"):
+    from tests.conftest import placeholder_render_pdf
+
+    report.render_pdf = placeholder_render_pdf
 
 def die(*args, **kwargs):
     os.kill(os.getpid(), signal.SIGKILL)
@@ -132,10 +136,10 @@ def copy_of(finished: Path, tmp_path: Path) -> tuple[Path, Path, dict[str, bytes
     return tmp_path / "spec.toml", out, snapshot(out)
 
 
-@pytest.fixture(scope="module")
-def last_month(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """One finished run, made once: each test gets a copy (a run costs seconds)."""
-    return finished_run(tmp_path_factory.mktemp("last_month"))
+@pytest.fixture(autouse=True)
+def _pages_not_drawn(placeholder_pdf: None) -> None:
+    """No check here reads a page of the report: runs here and in the child processes publish a placeholder
+    report.pdf (``tests.conftest.PLACEHOLDER_PDF``); each test copies the session's ``last_month`` run."""
 
 
 @pytest.fixture

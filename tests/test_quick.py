@@ -81,6 +81,7 @@ def test_the_readme_quick_look_passes_and_is_a_draft_on_every_page(project: Path
         assert re.search(r"Draft: a quick look", pages[0])
 
 
+@pytest.mark.usefixtures("placeholder_pdf")  # the console, the HTML and the record are read
 def test_short_chains_without_quick_fail_the_default_checks(project: Path) -> None:
     out = project / "short"
     result = CliRunner().invoke(main, ["run", str(project / "spec.toml"), "--out", str(out),
@@ -93,6 +94,7 @@ def test_short_chains_without_quick_fail_the_default_checks(project: Path) -> No
     assert "cannot reach ESS 400" in failure and "--quick" in failure and "--draws" in failure
 
 
+@pytest.mark.usefixtures("placeholder_pdf")  # the console, the HTML and the record are read
 def test_the_exact_engine_says_which_priors_it_replaces(project: Path) -> None:
     """The spec's default priors (normal means, half-normal SDs) are not what the exact engine integrates
     under (Jeffreys' flat means and 1/sigma SDs): the console and the record say so."""

@@ -20,12 +20,12 @@ from reportgen import runner
 from reportgen.fit import Fitter, PairFit
 from reportgen.runs import signals
 from tests.test_bad_input import invoke
-from tests.test_publish import child, copy_of, finished_run, ours_beside, snapshot, sums_check
+from tests.test_publish import child, copy_of, ours_beside, snapshot, sums_check
 
 
-@pytest.fixture(scope="module")
-def last_month(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    return finished_run(tmp_path_factory.mktemp("last_month"))
+@pytest.fixture(autouse=True)
+def _pages_not_drawn(placeholder_pdf: None) -> None:
+    """No check here reads a page of the report (see tests.conftest.PLACEHOLDER_PDF)."""
 
 
 @pytest.fixture

@@ -127,6 +127,7 @@ def test_one_planted_outlier_moves_the_normal_model_but_not_the_t_model(fitter: 
     assert abs(robust_median) < 0.25, robust_median
 
 
+@pytest.mark.usefixtures("draws_without_netcdf")  # the ranks need the draws of rho, not the draws file
 def test_student_t_ranks_of_true_rho_are_uniform() -> None:
     """Simulation-based calibration (Talts, Betancourt, Simpson, Vehtari & Gelman 2018): 200 data sets of
     n = 15 drawn from the Student-t model's prior (nu included); ranks of the true rho among 99 thinned

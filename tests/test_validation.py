@@ -92,6 +92,7 @@ def test_anscombe_quartet_has_r_0_816(name: str) -> None:
     assert sufficient_stats(x, y).sample_r == pytest.approx(stats.pearsonr(x, y).statistic, abs=1e-12)
 
 
+@pytest.mark.usefixtures("placeholder_pdf")  # results.csv is read
 def test_statsmodels_longley_end_to_end(tmp_path) -> None:  # type: ignore[no-untyped-def]
     """The Longley (1967) data as shipped by statsmodels: `reportgen run` reproduces the
     pandas/scipy correlations in results.csv, and the posterior medians sit near them."""
