@@ -1,6 +1,7 @@
 """The report's cost per pair: figures, HTML and PDF timed apart, against a target of 0.3 s a pair.
 
-Two runs of the exact engine on n = 1,000 rows:
+Runs of the exact engine on n = 1,000 rows, each twice side by side: the paged pairs drawn in this process,
+and in forked processes (one a CPU) as a run with the default executor draws them:
 
 * a pair set of 7 columns (21 pairs, every pair with its own page), through ``runner.run`` as a user runs
   it, with the three report stages timed where the run calls them;
@@ -12,7 +13,8 @@ Two runs of the exact engine on n = 1,000 rows:
 "pages" is the time spent on the paged pairs' pages (their figures, mostly); the rest of ``build_context``
 (page one's figures and tables) is shown as "context"; "s/page" is the pages' time per paged pair. Each run
 is shown in wall-clock seconds and in CPU seconds of this process (the figure to trust on a shared
-machine); "/target" is seconds per pair over the 0.3 s target.
+machine when one process draws; forked processes' CPU is not in it); "/target" is seconds per pair over
+the 0.3 s target.
 Run: .venv/bin/python benchmarks/bench_report.py [--rows 1000]
 [--columns 100] [--pair-pages N]
 """
@@ -93,15 +95,18 @@ class StageClock:
         return {**seconds, "context": seconds["context"] - seconds["pages"]}
 
 
-def real_run(folder: Path, rows: int, pair_pages: str) -> tuple[StageClock, int, int, tuple[Any, ...]]:
+def real_run(folder: Path, rows: int, pair_pages: str,
+             processes: bool = False) -> tuple[StageClock, int, int, tuple[Any, ...]]:
     from reportgen import runner
+    from reportgen.execution.executors import executor_choice
     from reportgen.spec import load_spec
 
     spec = load_spec(make_project(folder, 7, rows, pair_pages))
     clock = StageClock()
     restore = clock.install()
-    try:
-        runner.run(spec, folder / "out", command_line=[])
+    try:  # the default executor: too few pairs for worker processes, but the pages drawn in forked ones
+        runner.run(spec, folder / ("out_processes" if processes else "out"), command_line=[],
+                   executor=executor_choice("processes") if processes else None)
     finally:
         restore()
     pages = len(clock.captured[1].pairs)
@@ -132,13 +137,13 @@ def repeated_results(template: tuple[Any, ...], folder: Path, columns: int, rows
     return prepared.spec, results, {p.pair.key: p for p in prepared.pairs}, record, None
 
 
-def timed_report(inputs: tuple[Any, ...]) -> tuple[StageClock, int]:
+def timed_report(inputs: tuple[Any, ...], processes: int = 1) -> tuple[StageClock, int]:
     from reportgen import report
 
     clock = StageClock()
     restore = clock.install()
     try:
-        context = report.build_context(*inputs)
+        context = report.build_context(*inputs, processes=processes)
         html = report.render_html(context, None)
         report.render_pdf(html, context["meta"]["date"])
     finally:
@@ -164,15 +169,23 @@ def main() -> None:
     parser.add_argument("--pair-pages", default="", help='a value for [report] pair_pages, e.g. 30 or "rules_met"')
     args = parser.parse_args()
     setting = f"pair_pages = {args.pair_pages}" if args.pair_pages else ""
+    from reportgen.execution.executors import drawing_processes, executor_choice
+
+    drawing = drawing_processes(executor_choice("processes"))
     with tempfile.TemporaryDirectory() as tmp:
         small = Path(tmp, "small")
         large = Path(tmp, "large")
         small.mkdir()
         large.mkdir()
         clock, pairs, pages, inputs = real_run(small, args.rows, "")
-        rows = [("7 columns, runner.run", pairs, pages, clock)]
-        clock, pages = timed_report(repeated_results(inputs, large, args.columns, args.rows, setting))
-        rows.append((f"{args.columns} columns, repeated fits", args.columns * (args.columns - 1) // 2, pages, clock))
+        rows = [("7 columns, one process", pairs, pages, clock)]
+        clock, pairs, pages, _ = real_run(small, args.rows, "", processes=True)
+        rows.append((f"7 columns, {drawing} processes", pairs, pages, clock))
+        repeated = repeated_results(inputs, large, args.columns, args.rows, setting)
+        for processes in (1, drawing):
+            clock, pages = timed_report(repeated, processes)
+            rows.append((f"{args.columns} columns, {processes} process(es)", args.columns * (args.columns - 1) // 2,
+                         pages, clock))
     print(f"report of the exact engine, n = {args.rows:,} rows; target {TARGET_SECONDS_PER_PAIR} s a pair; wall "
           f"clock and this process's CPU seconds (load average at the end: {os.getloadavg()[0]:.1f} on "
           f"{os.cpu_count()} cores)")
@@ -180,6 +193,9 @@ def main() -> None:
           f"{'total':>8} {'s/pair':>9} {'/target':>7} {'s/page':>9}")
     for row in rows:
         print_row(*row)
+    one, many = rows[0][3].stages(), rows[1][3].stages()
+    print(f"pages drawn in {drawing} forked processes against one, side by side: {one['pages'] / many['pages']:.2f}x "
+          f"faster (wall); the whole report {sum(one.values()) / sum(many.values()):.2f}x")
 
 
 if __name__ == "__main__":

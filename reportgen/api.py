@@ -148,7 +148,8 @@ def run(
         Where the pairs are fitted, as ``--executor``, ``--scheduler`` and ``--workers``: ``"processes"``
         (default None means this: local worker processes when the run has enough pairs to gain from them),
         or ``"dask"`` with ``scheduler`` the address of a dask scheduler (``"tcp://host:8786"``). The
-        results are the same numbers and files whichever is used.
+        report's pages are drawn in one process a CPU on this machine, unless ``workers=1``. The results
+        are the same numbers and files whichever is used.
 
     Returns
     -------

@@ -289,7 +289,7 @@ executor_options = [
                  help="The dask scheduler's address (e.g. tcp://host:8786); only with --executor dask."),
     click.option("--workers", "workers", type=int, default=None,
                  help="Local worker processes for --executor processes (default: one per CPU, and none for "
-                      "a run of few pairs); 1 fits every pair in this process."),
+                      "a run of few pairs); 1 fits every pair, and draws the report's pages, in this process."),
 ]
 
 

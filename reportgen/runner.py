@@ -32,7 +32,7 @@ import pandas as pd
 from reportgen import report
 from reportgen.data import PairData, Table, load_pairs, load_table
 from reportgen.errors import OutputError
-from reportgen.execution.executors import ExecutorChoice, Plan, pair_works, plan_for
+from reportgen.execution.executors import ExecutorChoice, Plan, drawing_processes, pair_works, plan_for
 from reportgen.execution.work import LogEvent
 from reportgen.fit import Fitter, PairFit
 from reportgen.results import RunResults, results_rows, run_results
@@ -390,7 +390,8 @@ def run(
             progress("rendering the report", len(prepared.pairs), len(prepared.pairs))
         log.event("rendering", status=results.status)
         stage = clock.lap("record, draws and comparison", stage)
-        context = report.build_context(spec, results, pair_data, record, comparison)
+        context = report.build_context(spec, results, pair_data, record, comparison,
+                                       processes=drawing_processes(executor))
         stage = clock.lap("figures and report sections", stage)
         user_templates = (spec.resolve_input(spec.document.report.templates, "report.templates")
                           if spec.document.report.templates else None)

@@ -34,10 +34,12 @@ from reportgen.spec import Spec
 
 EXECUTORS = ("processes", "dask")  # what --executor offers; "serial" is what either falls back to
 # Below these many pairs the work stays in this process (benchmarks/bench_executors.py; DEVELOPERS.md
-# "Performance"): on 2 CPUs a worker process costs seconds to start and import the stack, and with the
-# sampler about 11 s more to compile each model structure, against about 0.5 s of work a pair, of which
-# two workers save at most half.
-MIN_PAIRS = {"exact": 40, "mcmc": 40}
+# "Performance"): on 2 CPUs a worker process costs about 2 s to start and import the stack, and with the
+# sampler about 11 s more to compile each model structure. The sampler's pair is about 0.5 s of work after
+# the fit, which two workers share out; the exact engine's is about 12 ms, and two workers were measured
+# slower than this process up to about 800 pairs (45 pairs: 0.7 s here against 2.6 s; 780: 9.3 against
+# 10.6; 1,225: 15.4 against 13.8).
+MIN_PAIRS = {"exact": 1000, "mcmc": 40}
 MAX_AUTO_WORKERS = 8  # beyond this a local machine's memory, not its cores, is what runs out
 WORKER_DIED = ("the worker process fitting this pair stopped abruptly (a crash, or killed for lack of memory), "
                "twice")
@@ -116,6 +118,15 @@ def plan_for(choice: ExecutorChoice | None, pairs: int, engine: str, chains: int
     cores = max(1, min(chains, cpus // workers))
     given = "as asked" if choice.workers is not None else f"one per CPU of {cpus}"
     return Plan("processes", workers, cores, f"{workers} local worker processes ({given}), {cores} thread(s) per fit")
+
+
+def drawing_processes(choice: ExecutorChoice | None, cpus: int | None = None) -> int:
+    """How many local processes draw the report's paged pairs: one when the run is to stay in this process
+    (no executor, ``serial``, or ``--workers 1``), else one a CPU, at most ``--workers`` and
+    ``MAX_AUTO_WORKERS`` (the figures are drawn on this machine even when the pairs ran on a cluster)."""
+    if choice is None or choice.name == "serial" or choice.workers == 1:
+        return 1
+    return min(cpus or available_cpus(), choice.workers or MAX_AUTO_WORKERS, MAX_AUTO_WORKERS)
 
 
 def pair_works(plan: Plan, spec: Spec, pairs: Sequence[PairData], fitter: Fitter, *,

@@ -7,8 +7,11 @@ escapes it when the templates are rendered.
 from __future__ import annotations
 
 import datetime as dt
+import gc
 import hashlib
 import json
+import multiprocessing
+from concurrent.futures import ProcessPoolExecutor
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -116,14 +119,42 @@ def page_context(result: PairResult, data: PairData, spec: Spec, compact: bool) 
     return pair_context(result, pair_figures(result, data, spec), mass, spec, compact=compact)
 
 
-def pages_for(results: list[PairResult], pair_data: dict[str, PairData], spec: Spec,
-              compact: bool) -> list[dict[str, Any]]:
-    """The paged pairs' pages, in the order of ``results``.
+# The inputs of the pages being drawn by forked processes: a child inherits them with the parent's memory,
+# so nothing but a page's index is sent to it (pickling a pair's data and the spec cost as much as its figures).
+_FORKED_INPUTS: tuple[list[PairResult], dict[str, PairData], Spec, bool] | None = None
+MIN_FORKED_PAGES = 4  # below this, starting processes costs about what they save (benchmarks/bench_report.py)
 
-    Drawn in this process: two worker processes (spawned, each importing matplotlib) were measured slower
-    than one process for 21 pages on 2 cores (DEVELOPERS.md, Performance).
+
+def _forked_page(index: int) -> dict[str, Any]:
+    assert _FORKED_INPUTS is not None, "called only in a process forked by pages_for"
+    results, pair_data, spec, compact = _FORKED_INPUTS
+    return page_context(results[index], pair_data[results[index].key], spec, compact)
+
+
+def pages_for(results: list[PairResult], pair_data: dict[str, PairData], spec: Spec,
+              compact: bool, processes: int = 1) -> list[dict[str, Any]]:
+    """The paged pairs' pages, in the order of ``results``, drawn in up to ``processes`` processes.
+
+    Extra processes are forked from this one, not spawned: spawned ones each spent about a second importing
+    matplotlib, more than they saved at 21 pages on 2 cores; a forked child starts with everything imported
+    and the inputs in its memory. It only draws figures and formats text (no sampler, whose threads would
+    not survive a fork). Each page is the same function of the same inputs wherever it is drawn, and
+    figures carry no random ids (``svg.hashsalt``), so the pages are the same bytes as drawn here.
     """
-    return [page_context(result, pair_data[result.key], spec, compact) for result in results]
+    global _FORKED_INPUTS
+    if processes <= 1 or len(results) < MIN_FORKED_PAGES or "fork" not in multiprocessing.get_all_start_methods():
+        return [page_context(result, pair_data[result.key], spec, compact) for result in results]
+    _FORKED_INPUTS = (results, pair_data, spec, compact)
+    # frozen objects are left out of the children's garbage collections, which would otherwise write to
+    # every object this process holds and so copy its memory page by page (the gc module's advice for fork)
+    gc.freeze()
+    try:
+        with ProcessPoolExecutor(max_workers=min(processes, len(results)),
+                                 mp_context=multiprocessing.get_context("fork")) as pool:
+            return list(pool.map(_forked_page, range(len(results))))
+    finally:
+        gc.unfreeze()
+        _FORKED_INPUTS = None
 
 
 def matrix_figures(results: RunResults, spec: Spec) -> list[dict[str, str]]:
@@ -430,9 +461,12 @@ def build_context(
     pair_data: dict[str, PairData],
     record: dict[str, Any],
     comparison: Comparison | None = None,
+    *,
+    processes: int = 1,
 ) -> dict[str, Any]:
-    """The run report's context; with ``comparison`` (against the previous run) it also holds
-    ``since_previous``: the flips for page one and the section after the summary (None without).
+    """The run report's context, the paged pairs' pages drawn in up to ``processes`` processes; with
+    ``comparison`` (against the previous run) it also holds ``since_previous``: the flips for page one and
+    the section after the summary (None without).
 
     Only the pairs ``[report] pair_pages`` selects get a page and its figures (see ``report.selection``);
     page one's tables and lists are capped so that it stays short at thousands of pairs.
@@ -443,7 +477,7 @@ def build_context(
     chosen = selection.select_pair_pages(results.pairs, getattr(document.report, "pair_pages", None))
     paged = frozenset(chosen.keys)
     paged_results = [result for result in results.pairs if result.key in paged]
-    pairs = pages_for(paged_results, pair_data, spec, compact)
+    pairs = pages_for(paged_results, pair_data, spec, compact, processes)
     thresholds = sorted({t for rule in document.rules for t in rule.thresholds})
     in_table = _strongest_in_order(paged_results, selection.MAX_SUMMARY_ROWS)
     in_forest = _strongest_in_order(in_table, selection.MAX_FOREST_ROWS)
