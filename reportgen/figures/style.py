@@ -25,6 +25,7 @@ from matplotlib.textpath import text_to_path
 from numpy.typing import ArrayLike
 
 from reportgen.assets import REPORT_FACE
+from reportgen.figures.flatten import flattened
 
 __all__ = [
     "ALERT",
@@ -173,7 +174,7 @@ def _to_svg(fig: Figure) -> str:
     """Render *fig* to an SVG document (call inside :func:`_style`)."""
     buf = io.BytesIO()
     fig.savefig(buf, format="svg", dpi=RASTER_DPI, metadata=_SVG_METADATA)
-    return _with_report_face(buf.getvalue().decode("utf-8"))
+    return _with_report_face(flattened(buf.getvalue().decode("utf-8")))
 
 
 def _with_report_face(svg: str) -> str:
