@@ -31,7 +31,7 @@ from reportgen.spec import Sampler
 PARAMETERS = normal_model.PARAMETERS
 # the models whose density and gradient are written by hand for numba (models/compiled.py), so their
 # compiled code is kept on disk across processes; the partial model is still built through PyMC
-HAND_WRITTEN = frozenset({"normal", "student_t"})
+HAND_WRITTEN = frozenset({"normal", "student_t", "partial"})
 
 # Compiled models live for the whole process: every Fitter (every spec run in this
 # process) reuses them. Keyed by model structure; the data are swapped per pair.
@@ -46,8 +46,11 @@ MAX_RETRIES = 2
 
 
 def compiled_key(inputs: ModelInputs, model: str) -> str:
-    """Which compiled model serves ``inputs``: a hand-written density takes every prior family as data; a
-    model built through PyMC compiles once per structure (model and prior families)."""
+    """Which compiled model serves ``inputs``: a hand-written density takes every prior family as data (the
+    partial model's, one per number of controls: ``partial2``); a model built through PyMC compiles once
+    per structure (model and prior families)."""
+    if model == "partial":
+        return inputs.structure.split("+")[0]
     return model if model in HAND_WRITTEN else inputs.structure
 
 

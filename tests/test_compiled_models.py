@@ -20,7 +20,7 @@ import pytest
 from scipy import optimize, stats
 
 from reportgen.data import PairData, sufficient_stats
-from reportgen.models import ModelInputs, compiled, normal, student_t
+from reportgen.models import ModelInputs, compiled, normal, partial, student_t
 from reportgen.spec import PairSpec, Priors
 
 PRIOR_FAMILIES = [
@@ -157,16 +157,81 @@ def test_expand_gives_the_constrained_values() -> None:
     np.testing.assert_allclose(out, [0.1, -0.2, 2.0, 0.5, 0.5, 5.0])
 
 
+# ----------------------------------------------------------------------------- the partial model
+
+
+def partial_inputs(k: int, prior: dict) -> ModelInputs:
+    from tests.test_partial import adjusted, random_columns
+
+    x, y, controls = random_columns(50, k, seed=30 + k)
+    return partial.model_inputs(adjusted(x, y, controls), Priors.model_validate(prior))
+
+
+PARTIAL_CASES = [(1, PRIOR_FAMILIES[0]), (2, PRIOR_FAMILIES[3]), (3, PRIOR_FAMILIES[2])]
+
+
+@pytest.mark.parametrize(("k", "prior"), PARTIAL_CASES, ids=["1-defaults", "2-jeffreys", "3-student_t"])
+def test_partial_density_and_gradient_equal_pymcs_compiled_model(k: int, prior: dict) -> None:
+    """PyMC's partial model (models/partial.py: flat intercepts and whitened slopes, the Potential of the
+    residual sums) on the same coordinates, the slopes raveled row by row as PyMC ravels them: the densities
+    differ by one constant and the gradients agree to rounding, for 1 to 3 controls."""
+    inputs = partial_inputs(k, prior)
+    pymc_model = partial.build_model(inputs)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        logp, dlogp = pymc_model.compile_logp(), pymc_model.compile_dlogp()
+    names = [v.name for v in pymc_model.value_vars]
+    assert names[-1] == "slopes_whitened"
+    data = compiled.packed(inputs)
+    offsets = []
+    for theta in points(n_dim=5 + 2 * k):
+        point = {names[0]: theta[0:2], names[1]: theta[2:4], names[2]: theta[4],
+                 names[3]: theta[5:].reshape(2, k)}
+        grad = np.zeros(theta.size)
+        ours = compiled.partial_log_density(theta, data, grad)
+        offsets.append(ours - float(logp(point)))
+        np.testing.assert_allclose(grad, dlogp(point), rtol=1e-9, atol=1e-9)
+    assert np.ptp(offsets) < 1e-8
+
+
+def test_partial_gradient_matches_finite_differences() -> None:
+    data = compiled.packed(partial_inputs(2, PRIOR_FAMILIES[1]))
+    for theta in points(3, 9):
+        grad = np.zeros(9)
+        compiled.partial_log_density(theta, data, grad)
+        numeric = optimize.approx_fprime(theta, lambda t: compiled.partial_log_density(t, data, np.zeros(9)), 1e-7)
+        np.testing.assert_allclose(grad, numeric, rtol=1e-4, atol=1e-3)
+
+
+def test_partial_expand_keeps_the_slopes_on_the_standardised_scale() -> None:
+    """The kept slopes are B = A L^-1 with S_zz = L L' (models/partial.py), as the PyMC model's ``slopes_z``;
+    at A = W' (the chains' centre) B is the least-squares slopes S_vz S_zz^-1 (common practice, the normal
+    equations) of the standardised columns."""
+    inputs = partial_inputs(3, PRIOR_FAMILIES[0])
+    data = compiled.packed(inputs)
+    cross = inputs.values["cross"]
+    least_squares = cross[:2, 2:] @ np.linalg.inv(cross[2:, 2:])
+    centre = compiled.initial_point(data, 11, seed=0) - np.random.default_rng(0).uniform(-1.0, 1.0, 11)
+    out = np.zeros(11)
+    compiled.expand_partial(centre, data, out)
+    np.testing.assert_allclose(out[5:].reshape(2, 3), least_squares, rtol=1e-10, atol=1e-12)
+    # the chains start at the partial r (the residual sums' correlation) and the residual SDs
+    residual = compiled.packed(inputs)[3:6]
+    r = residual[2] / np.sqrt(residual[0] * residual[1])
+    assert 2.0 / (1.0 + np.exp(-centre[4])) - 1.0 == pytest.approx(np.clip(r, -0.9, 0.9), rel=1e-12)
+
+
 CACHE_PROBE = """
 import json
 from reportgen.models import compiled as m
-print(json.dumps({"hits": m._normal_logp.cache_hits + m._student_t_logp.cache_hits + m._expand.cache_hits}))
+print(json.dumps({"hits": sum(f.cache_hits for f in (m._normal_logp, m._student_t_logp, m._expand, m._partial_logp,
+                                                     m._partial_expand))}))
 """
 
 
 def test_a_second_process_loads_the_compiled_density_from_the_cache(tmp_path: Path) -> None:
     """The first process in an empty cache folder compiles the callbacks and writes them; the next one loads
-    all three from the folder (numba's own count of cache hits) instead of compiling them again."""
+    all five from the folder (numba's own count of cache hits) instead of compiling them again."""
     env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
 
     def hits() -> int:
@@ -176,4 +241,4 @@ def test_a_second_process_loads_the_compiled_density_from_the_cache(tmp_path: Pa
 
     assert hits() == 0
     assert any((tmp_path / "cache").rglob("*.nbi"))
-    assert hits() == 3
+    assert hits() == 5

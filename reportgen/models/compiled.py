@@ -1,4 +1,5 @@
-"""The normal and Student-t log-densities and gradients written by hand for numba, compiled once per machine.
+"""The normal, Student-t and partial log-densities and gradients written by hand for numba, compiled once per
+machine.
 
 Building a model through PyMC costs every new process 11 s or more: nutpie compiles
 wrappers around PyTensor's functions that numba cannot keep on disk. The same
@@ -9,8 +10,9 @@ every later process in well under a second. The prior families travel in the
 per-pair data as codes, so one compiled function serves every structure of a model.
 
 The sampler works on the coordinates of the PyMC models (``normal.build_model``,
-``student_t.build_model``): the means; log sigma; the log-odds of rho's position
-on (0, 1); for the Student-t model log(nu - 1). The Jacobian terms are the same,
+``student_t.build_model``, ``partial.build_model``): the means; log sigma; the
+log-odds of rho's position on (0, 1); for the Student-t model log(nu - 1); for the
+partial model the whitened slopes. The Jacobian terms are the same,
 so each density differs from PyMC's only by a constant; tests check values and
 gradients against PyMC's compiled models for every prior family.
 
@@ -18,7 +20,8 @@ The per-pair data are one float64 vector (``pack``): ``n, mean_x, mean_y, sxx,
 syy, sxy`` (standardised sufficient statistics), the mean family code, two
 locations, two scales, the SD family code, two scales, nu of a half-Student-t
 prior, the two shapes of rho's stretched beta prior; the Student-t model then
-has the standardised rows, all x then all y.
+has the standardised rows, all x then all y; the partial model its sums and
+slopes' terms (``pack_partial``).
 """
 
 from __future__ import annotations
@@ -189,6 +192,85 @@ def expand(theta: np.ndarray, out: np.ndarray) -> None:
         out[5] = 1.0 + math.exp(theta[5])
 
 
+
+# ----------------------------------------------------------------------------- the partial model
+# Its data follow the header: k; the standardised (x, y) sums s_xx, s_yy, s_xy; W = L^-1 S_zv (k x 2, row
+# by row), with S_zz = L L'; and L^-1 (k x k), which turns the sampled whitened slopes A into the slopes
+# B = A L^-1 kept with the draws. The header's sums are the residual ones at the least-squares slopes, so
+# a chain starts where ``initial_point`` starts a simple pair's, at the partial r.
+PARTIAL_START = HEADER + 4
+
+
+def pack_partial(inputs: ModelInputs) -> np.ndarray:
+    """One pair's ``ModelInputs`` of the partial model as the vector its callbacks read."""
+    values = inputs.values
+    cross = np.asarray(values["cross"], dtype=float)
+    basis = np.asarray(values["slope_basis"], dtype=float)
+    k = basis.shape[0]
+    w = basis @ cross[2:, :2]  # L^-1 S_zv
+    residual = cross[:2, :2] - w.T @ w  # C(B^): the sums left at the least-squares slopes
+    header = pack(ModelInputs(structure=inputs.structure, values={
+        "suff": np.array([float(values["n"]), 0.0, 0.0, residual[0, 0], residual[1, 1], residual[0, 1]]),
+        **{name: value for name, value in values.items() if name not in ("cross", "slope_basis", "n")}}))
+    return np.concatenate([header, [float(k), cross[0, 0], cross[1, 1], cross[0, 1]], w.ravel(), basis.ravel()])
+
+
+@numba.njit(cache=True)
+def partial_log_density(theta: np.ndarray, data: np.ndarray, grad: np.ndarray) -> float:
+    """The partial model's log posterior density at ``theta`` (up to a constant); writes its gradient.
+
+    theta is the normal model's five coordinates, then the whitened slopes A (2 x k, row by row), flat. The
+    likelihood is the normal model's with means 0 and the residual sums C(A) = S_vv - A W - W'A' + A A'
+    (models/partial.py); with G the gradient of the log-likelihood in C (symmetric), the slopes' gradient is
+    2 G (A - W').
+    """
+    k = int(data[HEADER])
+    w = data[PARTIAL_START:PARTIAL_START + 2 * k]
+    aw00 = aw01 = aw10 = aw11 = aa00 = aa01 = aa11 = 0.0
+    for j in range(k):
+        a0, a1 = theta[5 + j], theta[5 + k + j]
+        w0, w1 = w[2 * j], w[2 * j + 1]
+        aw00 += a0 * w0
+        aw01 += a0 * w1
+        aw10 += a1 * w0
+        aw11 += a1 * w1
+        aa00 += a0 * a0
+        aa01 += a0 * a1
+        aa11 += a1 * a1
+    local = data[:HEADER].copy()
+    local[1] = 0.0
+    local[2] = 0.0
+    local[3] = data[HEADER + 1] - 2.0 * aw00 + aa00
+    local[4] = data[HEADER + 2] - 2.0 * aw11 + aa11
+    local[5] = data[HEADER + 3] - aw01 - aw10 + aa01
+    value = normal_log_density(theta[:5], local, grad[:5])
+    sx, sy = math.exp(theta[2]), math.exp(theta[3])
+    rho, _, d = _rho_terms(theta[4])
+    g00 = -0.5 / (d * sx * sx)
+    g11 = -0.5 / (d * sy * sy)
+    g01 = 0.5 * rho / (d * sx * sy)
+    for j in range(k):
+        e0 = theta[5 + j] - w[2 * j]  # (A - W')[0, j]
+        e1 = theta[5 + k + j] - w[2 * j + 1]  # (A - W')[1, j]
+        grad[5 + j] = 2.0 * (g00 * e0 + g01 * e1)
+        grad[5 + k + j] = 2.0 * (g01 * e0 + g11 * e1)
+    return value
+
+
+@numba.njit(cache=True)
+def expand_partial(theta: np.ndarray, data: np.ndarray, out: np.ndarray) -> None:
+    """The values kept for each draw: mu_z, sigma_z, rho and the slopes B = A L^-1 (2 x k, row by row)."""
+    expand(theta[:5], out[:5])
+    k = int(data[HEADER])
+    basis = data[PARTIAL_START + 2 * k:PARTIAL_START + 2 * k + k * k]
+    for r in range(2):
+        for c in range(k):
+            total = 0.0
+            for j in range(k):
+                total += theta[5 + r * k + j] * basis[j * k + c]
+            out[5 + r * k + c] = total
+
+
 _LOGP_SIGNATURE = types.int64(types.uint64, types.CPointer(types.double), types.CPointer(types.double),
                               types.CPointer(types.double), types.voidptr)
 _EXPAND_SIGNATURE = types.int64(types.uint64, types.uint64, types.CPointer(types.double),
@@ -235,49 +317,95 @@ def _expand(dim, expanded, x_, out_, data_):  # type: ignore[no-untyped-def]
     return OK
 
 
+
+@numba.cfunc(_LOGP_SIGNATURE, cache=True)
+def _partial_logp(dim, x_, grad_, logp_, data_):  # type: ignore[no-untyped-def]
+    n_dim = int(dim)
+    if n_dim < 7 or (n_dim - 5) % 2 != 0:
+        return -1
+    data = numba.carray(data_, (PARTIAL_START + 2 * ((n_dim - 5) // 2) + ((n_dim - 5) // 2) ** 2,), np.float64)
+    if int(data[HEADER]) != (n_dim - 5) // 2:
+        return -1
+    grad = numba.carray(grad_, (n_dim,))
+    value = partial_log_density(numba.carray(x_, (n_dim,)), data, grad)
+    logp_[0] = value
+    return _checked(value, grad)
+
+
+@numba.cfunc(_EXPAND_SIGNATURE, cache=True)
+def _partial_expand(dim, expanded, x_, out_, data_):  # type: ignore[no-untyped-def]
+    n_dim = int(dim)
+    if int(expanded) != n_dim or n_dim < 7 or (n_dim - 5) % 2 != 0:
+        return -1
+    data = numba.carray(data_, (PARTIAL_START + 2 * ((n_dim - 5) // 2) + ((n_dim - 5) // 2) ** 2,), np.float64)
+    expand_partial(numba.carray(x_, (n_dim,)), data, numba.carray(out_, (n_dim,)))
+    return OK
+
 @dataclasses.dataclass(frozen=True)
 class HandWrittenModel(CompiledPyMCModel):
     """nutpie's compiled-model record pointing at the callbacks above; its data are one packed vector."""
 
     def for_inputs(self, inputs: ModelInputs) -> HandWrittenModel:
         """This model fed one pair (the counterpart of ``with_data``, which names PyTensor's shared data)."""
-        data = pack(inputs)
+        data = packed(inputs)
         return dataclasses.replace(self, user_data=data, initial_point_func=_starting_points(data, self.n_dim))
 
 
 # the coordinates and the kept values of each model, named as in the PyMC models
 _UNCONSTRAINED = ["mu_z_0", "mu_z_1", "log_sigma_z_0", "log_sigma_z_1", "rho_unit_logodds_"]
 _KEPT: dict[str, tuple[str, ...]] = {"normal": ("mu_z", "sigma_z", "rho"),
-                                     "student_t": ("mu_z", "sigma_z", "rho", "nu")}
-_SHAPES = {"mu_z": (2,), "sigma_z": (2,), "rho": (), "nu": ()}
+                                     "student_t": ("mu_z", "sigma_z", "rho", "nu"),
+                                     "partial": ("mu_z", "sigma_z", "rho", "slopes_z")}
+
+
+def packed(inputs: ModelInputs) -> np.ndarray:
+    """The vector the callbacks of ``inputs``' model read."""
+    return pack_partial(inputs) if inputs.structure.startswith("partial") else pack(inputs)
+
+
+def controls_of(inputs: ModelInputs) -> int:
+    """The number of control columns (0 but for the partial model)."""
+    return int(np.asarray(inputs.values["slope_basis"]).shape[0]) if inputs.structure.startswith("partial") else 0
 
 
 def compiled_model(model: str, inputs: ModelInputs) -> HandWrittenModel:
-    """A nutpie model of ``model`` (``normal`` or ``student_t``) for any prior family, fed ``inputs``."""
-    n_dim = 5 if model == "normal" else 6
+    """A nutpie model of ``model`` (``normal``, ``student_t`` or, for one number of controls, ``partial``)
+    for any prior family, fed ``inputs``."""
+    k = controls_of(inputs)
+    n_dim = {"normal": 5, "student_t": 6, "partial": 5 + 2 * k}[model]
     names = list(_KEPT[model])
-    shapes = [_SHAPES[name] for name in names]
-    ends = np.cumsum([int(np.prod(shape)) for shape in shapes])
-    slices = [slice(int(end - np.prod(shape)), int(end)) for end, shape in zip(ends, shapes, strict=True)]
-    data = pack(inputs)
+    shapes = {"mu_z": (2,), "sigma_z": (2,), "rho": (), "nu": (), "slopes_z": (2, k)}
+    ends = np.cumsum([int(np.prod(shapes[name])) for name in names])
+    slices = [slice(int(end - np.prod(shapes[name])), int(end)) for end, name in zip(ends, names, strict=True)]
+    data = packed(inputs)
+    coordinates = _UNCONSTRAINED + (["nu_minus_one_log_"] if model == "student_t" else
+                                    [f"slopes_whitened_{r}_{j}" for r in range(2) for j in range(k)])
+    logp, expanded = {"normal": (_normal_logp, _expand), "student_t": (_student_t_logp, _expand),
+                      "partial": (_partial_logp, _partial_expand)}[model]
     return HandWrittenModel(
-        dims={}, compiled_logp_func=_normal_logp if model == "normal" else _student_t_logp,
-        compiled_expand_func=_expand, initial_point_func=_starting_points(data, n_dim), shared_data={},
-        user_data=data, n_expanded=n_dim, shape_info=(names, slices, [np.array(s, dtype=int) for s in shapes]),
-        logp_func=None, expand_func=None, _n_dim=n_dim, _shapes=dict(zip(names, shapes, strict=True)),
-        _coords={"unconstrained_parameter": pd.Index(_UNCONSTRAINED + ["nu_minus_one_log_"] * (n_dim - 5))})
+        dims={}, compiled_logp_func=logp, compiled_expand_func=expanded,
+        initial_point_func=_starting_points(data, n_dim), shared_data={}, user_data=data, n_expanded=n_dim,
+        shape_info=(names, slices, [np.array(shapes[name], dtype=int) for name in names]),
+        logp_func=None, expand_func=None, _n_dim=n_dim, _shapes={name: shapes[name] for name in names},
+        _coords={"unconstrained_parameter": pd.Index(coordinates)})
 
 
 def initial_point(data: np.ndarray, n_dim: int, seed: int) -> np.ndarray:
-    """A chain's starting point: the standardised sample means and SDs, the sample r and (Student-t) the prior
-    mean of nu - 1, each moved by a uniform jitter in (-1, 1), as PyMC's default start is, so chains start apart."""
+    """A chain's starting point: the standardised sample means and SDs, the sample r, and the prior mean of
+    nu - 1 (Student-t) or the least-squares slopes (partial; its header holds the residual sums, so r is the
+    partial r), each moved by a uniform jitter in (-1, 1), as PyMC's default start is, so chains start apart."""
     n, sxx, syy, sxy = data[0], data[3], data[4], data[5]
     if sxx <= 0.0:  # the Student-t model's header has no sums: the rows are standardised
         sxx = syy = n - 1.0
         sxy = float(np.dot(data[HEADER:HEADER + int(n)], data[HEADER + int(n):HEADER + 2 * int(n)]))
     r = min(max(sxy / math.sqrt(sxx * syy), -0.9), 0.9)
     centre = [data[1], data[2], 0.5 * math.log(sxx / (n - 1.0)), 0.5 * math.log(syy / (n - 1.0)),
-              math.log((1.0 + r) / (1.0 - r)), math.log(1.0 / NU_RATE)][:n_dim]
+              math.log((1.0 + r) / (1.0 - r))]
+    if n_dim == 6:  # the Student-t model: the prior mean of nu - 1
+        centre.append(math.log(1.0 / NU_RATE))
+    elif n_dim > 6:  # the partial model: the least-squares whitened slopes, W' (see pack_partial)
+        k = (n_dim - 5) // 2
+        centre.extend(data[PARTIAL_START:PARTIAL_START + 2 * k].reshape(k, 2).T.ravel())
     return np.array(centre) + np.random.default_rng(seed).uniform(-1.0, 1.0, n_dim)
 
 
