@@ -24,6 +24,9 @@ correlation of ``n - k`` rows with sums C^. So under Jeffreys' ``1/sigma`` prior
 of rho is Jeffreys' exact one with ``n - k`` rows and the partial r (``exact_partial_posterior``), and
 under the spec's proper SD priors it is the normal model's reference posterior of those residual sums
 (``reference_inputs``: its SD prior is read against the raw SDs of x and y, as the sampler reads it).
+
+The sampler runs the same density written for numba (``models/compiled.py``, kept in numba's on-disk
+cache, so no process compiles it through PyMC); ``build_model`` is the PyMC model it is tested against.
 """
 
 from __future__ import annotations
