@@ -150,6 +150,26 @@ def test_density_stays_finite_near_rho_of_one() -> None:
         assert np.sign(grad[4]) == inward
 
 
+@pytest.mark.parametrize("model", ["normal", "partial"])
+def test_a_point_where_rho_is_one_in_floating_point_is_reported_not_finite(model: str) -> None:
+    """Far out in rho's log-odds (800) D = 1 - rho^2 underflows to 0: the density is not finite and the C
+    callback says so with nutpie's code for a non-finite density or gradient (the sampler then counts a
+    divergence), instead of raising inside a callback, which cannot pass an exception on."""
+    import ctypes
+
+    if model == "normal":
+        data, theta, logp = compiled.pack(inputs_for({})), np.array([0.0, 0.0, 0.0, 0.0, 800.0]), compiled._normal_logp
+    else:
+        data = compiled.packed(partial_inputs(1, PRIOR_FAMILIES[0]))
+        theta, logp = np.array([0.0, 0.0, 0.0, 0.0, 800.0, 0.1, -0.1]), compiled._partial_logp
+    grad, value = np.zeros(theta.size), np.full(1, 123.0)
+    pointer = ctypes.POINTER(ctypes.c_double)
+    code = logp.ctypes(theta.size, theta.ctypes.data_as(pointer), grad.ctypes.data_as(pointer),
+                       value.ctypes.data_as(pointer), data.ctypes.data_as(ctypes.c_void_p))
+    assert code in (compiled.NOT_FINITE_GRADIENT, compiled.NOT_FINITE_DENSITY)
+    assert not (np.isfinite(value[0]) and np.isfinite(grad).all())
+
+
 def test_expand_gives_the_constrained_values() -> None:
     out = np.zeros(6)
     compiled.expand(np.array([0.1, -0.2, np.log(2.0), np.log(0.5), np.log(3.0), np.log(4.0)]), out)

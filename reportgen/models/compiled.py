@@ -44,7 +44,10 @@ SD_FAMILIES = {"half_normal": 0.0, "half_student_t": 1.0, "jeffreys": 2.0}
 # the Student-t model's prior nu - 1 ~ Exponential(rate 1/29) (see models/student_t.py)
 NU_RATE = 1.0 / 29.0
 # nutpie's callback return codes: 0 is a good evaluation; 3 and 4 say the gradient or the density was not
-# finite, which the sampler treats as a divergent point rather than a crash
+# finite, which the sampler treats as a divergent point rather than a crash. Every function is compiled with
+# NumPy's error model: a division by zero (D = 1 - rho^2 underflows to 0 far out in rho's log-odds) gives an
+# infinity that those codes report; under Python's model it raised an exception that a C callback cannot
+# pass on, so numba printed it and the sampler read a density that had not been written.
 OK, NOT_FINITE_GRADIENT, NOT_FINITE_DENSITY = 0, 3, 4
 
 
@@ -69,7 +72,7 @@ def pack(inputs: ModelInputs) -> np.ndarray:
     return np.concatenate([header, *rows])
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def _softplus(value: float) -> float:
     """log(1 + e^value) without overflow."""
     if value > 0.0:
@@ -77,7 +80,7 @@ def _softplus(value: float) -> float:
     return math.log1p(math.exp(value))
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def _prior_terms(theta: np.ndarray, data: np.ndarray, grad: np.ndarray) -> float:
     """The priors on the means, the SDs and rho, with the Jacobians of their transforms; adds to ``grad``."""
     logp = 0.0
@@ -106,7 +109,7 @@ def _prior_terms(theta: np.ndarray, data: np.ndarray, grad: np.ndarray) -> float
     return logp
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def _rho_terms(t: float) -> tuple[float, float, float]:
     """rho, log D and D for D = 1 - rho^2 = 4 u (1 - u), u = rho_unit: formed from log u and log(1 - u), so D
     keeps its digits when rho is near -1 or 1."""
@@ -115,7 +118,7 @@ def _rho_terms(t: float) -> tuple[float, float, float]:
     return 2.0 * math.exp(log_u) - 1.0, log_d, math.exp(log_d)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def normal_log_density(theta: np.ndarray, data: np.ndarray, grad: np.ndarray) -> float:
     """The normal model's log posterior density at ``theta`` (up to a constant); writes its gradient.
 
@@ -141,7 +144,7 @@ def normal_log_density(theta: np.ndarray, data: np.ndarray, grad: np.ndarray) ->
     return loglik + _prior_terms(theta, data, grad)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def student_t_log_density(theta: np.ndarray, data: np.ndarray, grad: np.ndarray) -> float:
     """The Student-t model's log posterior density at ``theta`` (up to a constant); writes its gradient.
 
@@ -180,7 +183,7 @@ def student_t_log_density(theta: np.ndarray, data: np.ndarray, grad: np.ndarray)
     return loglik - NU_RATE * nu_minus_one + theta[5] + _prior_terms(theta, data, grad)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def expand(theta: np.ndarray, out: np.ndarray) -> None:
     """The values kept for each draw: mu_z, sigma_z, rho and (Student-t) nu."""
     out[0] = theta[0]
@@ -215,7 +218,7 @@ def pack_partial(inputs: ModelInputs) -> np.ndarray:
     return np.concatenate([header, [float(k), cross[0, 0], cross[1, 1], cross[0, 1]], w.ravel(), basis.ravel()])
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def partial_log_density(theta: np.ndarray, data: np.ndarray, grad: np.ndarray) -> float:
     """The partial model's log posterior density at ``theta`` (up to a constant); writes its gradient.
 
@@ -257,7 +260,7 @@ def partial_log_density(theta: np.ndarray, data: np.ndarray, grad: np.ndarray) -
     return value
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def expand_partial(theta: np.ndarray, data: np.ndarray, out: np.ndarray) -> None:
     """The values kept for each draw: mu_z, sigma_z, rho and the slopes B = A L^-1 (2 x k, row by row)."""
     expand(theta[:5], out[:5])
@@ -277,7 +280,7 @@ _EXPAND_SIGNATURE = types.int64(types.uint64, types.uint64, types.CPointer(types
                                 types.CPointer(types.double), types.voidptr)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model="numpy")
 def _checked(value: float, grad: np.ndarray) -> int:
     for i in range(grad.size):
         if not np.isfinite(grad[i]):
@@ -287,7 +290,7 @@ def _checked(value: float, grad: np.ndarray) -> int:
 
 # The C callbacks nutpie calls: compiled when this module is first imported on a machine, loaded from the
 # cache after that. Their dimensions are checked, since nutpie passes them with every call.
-@numba.cfunc(_LOGP_SIGNATURE, cache=True)
+@numba.cfunc(_LOGP_SIGNATURE, cache=True, error_model="numpy")
 def _normal_logp(dim, x_, grad_, logp_, data_):  # type: ignore[no-untyped-def]
     if dim != 5:
         return -1
@@ -297,7 +300,7 @@ def _normal_logp(dim, x_, grad_, logp_, data_):  # type: ignore[no-untyped-def]
     return _checked(value, grad)
 
 
-@numba.cfunc(_LOGP_SIGNATURE, cache=True)
+@numba.cfunc(_LOGP_SIGNATURE, cache=True, error_model="numpy")
 def _student_t_logp(dim, x_, grad_, logp_, data_):  # type: ignore[no-untyped-def]
     if dim != 6:
         return -1
@@ -309,7 +312,7 @@ def _student_t_logp(dim, x_, grad_, logp_, data_):  # type: ignore[no-untyped-de
     return _checked(value, grad)
 
 
-@numba.cfunc(_EXPAND_SIGNATURE, cache=True)
+@numba.cfunc(_EXPAND_SIGNATURE, cache=True, error_model="numpy")
 def _expand(dim, expanded, x_, out_, data_):  # type: ignore[no-untyped-def]
     if expanded != dim or dim < 5 or dim > 6:
         return -1
@@ -318,7 +321,7 @@ def _expand(dim, expanded, x_, out_, data_):  # type: ignore[no-untyped-def]
 
 
 
-@numba.cfunc(_LOGP_SIGNATURE, cache=True)
+@numba.cfunc(_LOGP_SIGNATURE, cache=True, error_model="numpy")
 def _partial_logp(dim, x_, grad_, logp_, data_):  # type: ignore[no-untyped-def]
     n_dim = int(dim)
     if n_dim < 7 or (n_dim - 5) % 2 != 0:
@@ -332,7 +335,7 @@ def _partial_logp(dim, x_, grad_, logp_, data_):  # type: ignore[no-untyped-def]
     return _checked(value, grad)
 
 
-@numba.cfunc(_EXPAND_SIGNATURE, cache=True)
+@numba.cfunc(_EXPAND_SIGNATURE, cache=True, error_model="numpy")
 def _partial_expand(dim, expanded, x_, out_, data_):  # type: ignore[no-untyped-def]
     n_dim = int(dim)
     if int(expanded) != n_dim or n_dim < 7 or (n_dim - 5) % 2 != 0:
