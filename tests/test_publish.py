@@ -19,6 +19,7 @@ import pytest
 from reportgen.errors import OutputError
 from reportgen.runner import OUTPUT_FILES
 from reportgen.runs import publish
+from tests.conftest import PLACEHOLDER_PDF_VARIABLE
 from tests.test_bad_input import invoke, project
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -32,7 +33,7 @@ from reportgen.runs import publish
 
 point = os.environ["REPORTGEN_TEST_POINT"]
 calls = []
-if os.environ.get("REPORTGEN_TEST_PLACEHOLDER_PDF"):
+if os.environ.get("''' + PLACEHOLDER_PDF_VARIABLE + r'''"):
     from tests.conftest import placeholder_render_pdf
 
     report.render_pdf = placeholder_render_pdf
