@@ -87,6 +87,42 @@ def test_a_bug_while_drawing_in_a_child_is_raised_here(five_pairs: tuple[Any, ..
     assert gc.get_freeze_count() == 0
 
 
+def test_an_interrupt_while_children_draw_stops_them_at_once(five_pairs: tuple[Any, ...],
+                                                              monkeypatch: pytest.MonkeyPatch) -> None:
+    """Ctrl-C or SIGTERM reaches the run (here SIGALRM's handler raises in its place) while the children are
+    busy: the run raises within seconds and no child is left, instead of waiting for every page."""
+    import multiprocessing
+    import signal
+    import time
+
+    def slow(*args: Any, **kwargs: Any) -> dict[str, Any]:
+        time.sleep(60)
+        return {}
+
+    def interrupt(signum: int, frame: object) -> None:
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(report_context, "page_context", slow)
+    previous = signal.signal(signal.SIGALRM, interrupt)
+    spec, results, pair_data, _ = five_pairs
+    started = time.perf_counter()
+    try:
+        signal.alarm(1)
+        with pytest.raises(KeyboardInterrupt):
+            report_context.pages_for(list(results.pairs), pair_data, spec, False, processes=2)
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, previous)
+    assert time.perf_counter() - started < 20
+    # a child that was being forked when the interrupt came may take a moment to be reaped; one left
+    # drawing would sleep for a minute
+    deadline = time.perf_counter() + 10
+    while multiprocessing.active_children() and time.perf_counter() < deadline:
+        time.sleep(0.1)
+    assert multiprocessing.active_children() == []
+    assert gc.get_freeze_count() == 0
+
+
 def test_drawing_stays_in_this_process_when_the_run_is_asked_to() -> None:
     assert drawing_processes(None, cpus=8) == 1
     assert drawing_processes(executor_choice("serial"), cpus=8) == 1

@@ -145,7 +145,7 @@ def pair_works(plan: Plan, spec: Spec, pairs: Sequence[PairData], fitter: Fitter
     return dask_pair_works(plan.scheduler or "", spec, pairs, settings)
 
 
-def _terminate(pool: ProcessPoolExecutor) -> None:
+def terminate_pool(pool: ProcessPoolExecutor) -> None:
     """Stop a pool's workers now, running pairs included (a pool only waits for them to finish)."""
     processes = list((getattr(pool, "_processes", None) or {}).values())  # no public handle before 3.14
     pool.shutdown(wait=False, cancel_futures=True)
@@ -204,7 +204,7 @@ class ProcessPairs:
                 if finished:
                     self.pool.shutdown(wait=True)
                 else:  # interrupted, or a bug in a pair's work: the other workers are stopped, not awaited
-                    _terminate(self.pool)
+                    terminate_pool(self.pool)
 
     def _collect(self, index: int) -> PairWork:
         while True:
@@ -216,7 +216,7 @@ class ProcessPairs:
     def _recover(self, first: int) -> None:
         """A worker died. The pairs it was fitting (their marker files are still there) are each tried once
         more alone; the pairs not yet done go to a new pool."""
-        _terminate(self.pool)
+        terminate_pool(self.pool)
         waiting = [i for i in range(first, len(self.pairs))
                    if not (self.futures[i].done() and self.futures[i].exception() is None)]
         suspects = [i for i in waiting if (self.markers / f"pair-{i}").exists()]
@@ -238,4 +238,4 @@ class ProcessPairs:
         except BrokenProcessPool:
             return failed_pair(self.spec, self.pairs[index], WORKER_DIED)
         finally:
-            _terminate(pool)
+            terminate_pool(pool)

@@ -11,6 +11,7 @@ import gc
 import hashlib
 import json
 import multiprocessing
+import signal
 from concurrent.futures import ProcessPoolExecutor
 from typing import TYPE_CHECKING, Any
 
@@ -18,6 +19,7 @@ import numpy as np
 
 from reportgen import figures, interpret, narrative
 from reportgen.data import PairData
+from reportgen.execution.executors import terminate_pool
 from reportgen.report import selection
 from reportgen.report.changes import long_date, since_previous_context
 from reportgen.report.checks import checks_context, highlighted_rows, run_checks_context
@@ -148,13 +150,39 @@ def pages_for(results: list[PairResult], pair_data: dict[str, PairData], spec: S
     # frozen objects are left out of the children's garbage collections, which would otherwise write to
     # every object this process holds and so copy its memory page by page (the gc module's advice for fork)
     gc.freeze()
+    earlier = set(multiprocessing.active_children())
     try:
-        with ProcessPoolExecutor(max_workers=min(processes, len(results)),
-                                 mp_context=multiprocessing.get_context("fork")) as pool:
-            return list(pool.map(_forked_page, range(len(results))))
+        pool = ProcessPoolExecutor(max_workers=min(processes, len(results)),
+                                   mp_context=multiprocessing.get_context("fork"), initializer=_leave_signals_to_parent)
+        try:
+            pages = list(pool.map(_forked_page, range(len(results))))
+        except BaseException:  # Ctrl-C, SIGTERM or a bug: the children are stopped, not waited for
+            terminate_pool(pool)
+            # a child being forked when the interrupt came is not yet in the pool's own list
+            _stop_children(set(multiprocessing.active_children()) - earlier)
+            raise
+        pool.shutdown(wait=True)
+        return pages
     finally:
         gc.unfreeze()
         _FORKED_INPUTS = None
+
+
+def _stop_children(children: set[multiprocessing.process.BaseProcess]) -> None:
+    for child in children:
+        child.terminate()
+    for child in children:
+        child.join(timeout=5)
+        if child.is_alive():
+            child.kill()
+            child.join(timeout=5)
+
+
+def _leave_signals_to_parent() -> None:
+    """A forked child inherits this process's handlers: Ctrl-C (sent to the whole process group) is left to
+    the run, which stops the children itself, and SIGTERM from it ends a child at once."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
 
 
 def matrix_figures(results: RunResults, spec: Spec) -> list[dict[str, str]]:
