@@ -18,10 +18,11 @@ from __future__ import annotations
 import multiprocessing
 import os
 import tempfile
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from concurrent.futures import Future, ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
+from multiprocessing.process import BaseProcess
 from pathlib import Path
 from typing import Any
 
@@ -146,9 +147,15 @@ def pair_works(plan: Plan, spec: Spec, pairs: Sequence[PairData], fitter: Fitter
 
 
 def terminate_pool(pool: ProcessPoolExecutor) -> None:
-    """Stop a pool's workers now, running pairs included (a pool only waits for them to finish)."""
+    """Stop a pool's workers now, running work included (a pool only waits for it to finish)."""
     processes = list((getattr(pool, "_processes", None) or {}).values())  # no public handle before 3.14
     pool.shutdown(wait=False, cancel_futures=True)
+    stop_processes(processes)
+
+
+def stop_processes(processes: Iterable[BaseProcess]) -> None:
+    """SIGTERM to each live process, then SIGKILL to any still alive 5 s later."""
+    processes = list(processes)
     for process in processes:
         if process.is_alive():
             process.terminate()

@@ -19,7 +19,7 @@ import numpy as np
 
 from reportgen import figures, interpret, narrative
 from reportgen.data import PairData
-from reportgen.execution.executors import terminate_pool
+from reportgen.execution.executors import stop_processes, terminate_pool
 from reportgen.report import selection
 from reportgen.report.changes import long_date, since_previous_context
 from reportgen.report.checks import checks_context, highlighted_rows, run_checks_context
@@ -159,23 +159,13 @@ def pages_for(results: list[PairResult], pair_data: dict[str, PairData], spec: S
         except BaseException:  # Ctrl-C, SIGTERM or a bug: the children are stopped, not waited for
             terminate_pool(pool)
             # a child being forked when the interrupt came is not yet in the pool's own list
-            _stop_children(set(multiprocessing.active_children()) - earlier)
+            stop_processes(set(multiprocessing.active_children()) - earlier)
             raise
         pool.shutdown(wait=True)
         return pages
     finally:
         gc.unfreeze()
         _FORKED_INPUTS = None
-
-
-def _stop_children(children: set[multiprocessing.process.BaseProcess]) -> None:
-    for child in children:
-        child.terminate()
-    for child in children:
-        child.join(timeout=5)
-        if child.is_alive():
-            child.kill()
-            child.join(timeout=5)
 
 
 def _leave_signals_to_parent() -> None:
